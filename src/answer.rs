@@ -1,0 +1,305 @@
+//! Ask: retrieve → draft → verify, and the versioned answer record that
+//! `ask --json` prints and later tools replay.
+//!
+//! Answer record, schema version 1 (see `eval/answer-record.schema.json`):
+//! `schema_version`, `onrecord_version`, `created_at`, `question`, `config`
+//! (retriever, k, drafter, judge, filters, ...), `retrieved` (chunk ids with
+//! content hashes, ranks and scores), `sentences` (each with `text`,
+//! `verdict` = `supported` | `struck`, `reason`, `confidence` and
+//! `citations`, each with `doc_id`, `title`, `page`, `quote`, offsets and
+//! the page hash), `abstained`, `abstain_reason` and `caution`.
+//!
+//! invariant: no sentence reaches the answer without passing the verifier.
+
+use crate::draft::{DraftRequest, Drafter};
+use crate::error::Result;
+use crate::retrieve::Index;
+use crate::types::{ChunkId, DocId, Filters};
+use crate::verify::{Judge, Verdict, VerifiedSentence, verify};
+use serde::{Deserialize, Serialize};
+use std::collections::HashMap;
+
+pub const ANSWER_SCHEMA_VERSION: u32 = 1;
+
+/// The caution shown with every answer.
+pub const CAUTION: &str = "onrecord checks that each sentence is supported by the cited text. It does not establish that the documents are accurate, complete or authentic. Records may be wrong, redacted or out of context. Check the original pages and apply legal review (defamation, privacy) before publication.";
+
+/// How an answer was made, recorded with it.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct AskConfig {
+    pub retriever: String,
+    pub k: usize,
+    pub drafter: String,
+    pub judge: String,
+    #[serde(default)]
+    pub filters: Filters,
+    #[serde(default)]
+    pub drafter_settings: serde_json::Value,
+}
+
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct RetrievedRecord {
+    pub chunk_id: ChunkId,
+    pub doc_id: DocId,
+    pub title: String,
+    pub page: u32,
+    pub end_page: u32,
+    /// SHA-256 of the chunk text.
+    pub hash: String,
+    pub retriever: String,
+    pub rank: usize,
+    pub score: f32,
+}
+
+/// The versioned answer record.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct AnswerRecord {
+    pub schema_version: u32,
+    pub onrecord_version: String,
+    pub created_at: String,
+    pub question: String,
+    pub config: AskConfig,
+    pub retrieved: Vec<RetrievedRecord>,
+    pub sentences: Vec<VerifiedSentence>,
+    pub abstained: bool,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub abstain_reason: Option<String>,
+    pub caution: String,
+}
+
+impl AnswerRecord {
+    pub fn supported(&self) -> impl Iterator<Item = &VerifiedSentence> {
+        self.sentences
+            .iter()
+            .filter(|s| s.verdict == Verdict::Supported)
+    }
+
+    pub fn struck(&self) -> impl Iterator<Item = &VerifiedSentence> {
+        self.sentences
+            .iter()
+            .filter(|s| s.verdict == Verdict::Struck)
+    }
+}
+
+/// Run the whole chain for one question.
+pub fn ask(
+    index: &Index,
+    question: &str,
+    filters: &Filters,
+    k: usize,
+    drafter: &dyn Drafter,
+    drafter_settings: serde_json::Value,
+    judge: &dyn Judge,
+) -> Result<AnswerRecord> {
+    let retrieved = index.search(question, filters, k)?;
+    let query_terms = index.query_terms(question)?;
+    let draft = drafter.draft(&DraftRequest {
+        question,
+        retrieved: &retrieved,
+        query_terms: &query_terms,
+    })?;
+    let chunks: HashMap<ChunkId, _> = retrieved
+        .iter()
+        .map(|r| (r.chunk.id, r.chunk.clone()))
+        .collect();
+    let store = &index.store;
+    let page_hash = |d: &DocId, p: u32| store.page(d, p).ok().flatten().map(|(_, h)| h);
+    let sentences = verify(&draft, &chunks, judge, &page_hash);
+    let any_supported = sentences.iter().any(|s| s.verdict == Verdict::Supported);
+    let abstain_reason = match (&draft.abstain, any_supported) {
+        (Some(r), _) => Some(r.clone()),
+        (None, false) => Some("every drafted sentence was struck by the verifier".into()),
+        (None, true) => None,
+    };
+    Ok(AnswerRecord {
+        schema_version: ANSWER_SCHEMA_VERSION,
+        onrecord_version: env!("CARGO_PKG_VERSION").into(),
+        created_at: now_utc(),
+        question: question.into(),
+        config: AskConfig {
+            retriever: "bm25".into(),
+            k,
+            drafter: drafter.name(),
+            judge: judge.name().into(),
+            filters: filters.clone(),
+            drafter_settings,
+        },
+        retrieved: retrieved
+            .iter()
+            .map(|r| RetrievedRecord {
+                chunk_id: r.chunk.id,
+                doc_id: r.chunk.doc_id.clone(),
+                title: r.chunk.title.clone(),
+                page: r.chunk.start_page,
+                end_page: r.chunk.end_page,
+                hash: r.chunk.hash.clone(),
+                retriever: r.retriever.into(),
+                rank: r.rank,
+                score: r.score,
+            })
+            .collect(),
+        abstained: !any_supported,
+        abstain_reason,
+        sentences,
+        caution: CAUTION.into(),
+    })
+}
+
+/// Current time as an RFC 3339 UTC timestamp.
+pub fn now_utc() -> String {
+    let secs = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map(|d| d.as_secs() as i64)
+        .unwrap_or(0);
+    let days = secs.div_euclid(86_400);
+    let rem = secs.rem_euclid(86_400);
+    let (y, m, d) = civil_from_days(days);
+    format!(
+        "{y:04}-{m:02}-{d:02}T{:02}:{:02}:{:02}Z",
+        rem / 3600,
+        (rem % 3600) / 60,
+        rem % 60
+    )
+}
+
+/// Days since 1970-01-01 to a proleptic Gregorian date (H. Hinnant's
+/// `civil_from_days` algorithm).
+fn civil_from_days(z: i64) -> (i64, u32, u32) {
+    let z = z + 719_468;
+    let era = z.div_euclid(146_097);
+    let doe = z.rem_euclid(146_097);
+    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
+    let y = yoe + era * 400;
+    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    let mp = (5 * doy + 2) / 153;
+    let d = (doy - (153 * mp + 2) / 5 + 1) as u32;
+    let m = if mp < 10 { mp + 3 } else { mp - 9 } as u32;
+    (if m <= 2 { y + 1 } else { y }, m, d)
+}
+
+/// Render an answer as a reporter reads it in a terminal.
+pub fn render_text(a: &AnswerRecord) -> String {
+    use std::fmt::Write;
+    let mut out = String::new();
+    let _ = writeln!(out, "Question: {}\n", a.question);
+    // Footnote numbers: one per distinct (doc, page, quote).
+    let mut notes: Vec<&crate::types::Citation> = Vec::new();
+    if a.abstained {
+        let _ = writeln!(
+            out,
+            "No answer: {}.",
+            a.abstain_reason
+                .as_deref()
+                .unwrap_or("the retrieved records do not answer this question")
+        );
+        if !a.retrieved.is_empty() {
+            let _ = writeln!(out, "\nClosest records (not quoted, check them yourself):");
+            let mut seen = Vec::new();
+            for r in a.retrieved.iter() {
+                if seen.contains(&&r.doc_id) {
+                    continue;
+                }
+                seen.push(&r.doc_id);
+                let _ = writeln!(out, "  - {} ({}, p. {})", r.title, r.doc_id, r.page);
+                if seen.len() == 3 {
+                    break;
+                }
+            }
+        }
+    } else {
+        let _ = writeln!(out, "Answer");
+        for s in a.supported() {
+            let m = footnote_marks(s, &mut notes);
+            let _ = writeln!(out, "  {} {m}", s.text);
+        }
+        let _ = writeln!(out, "\nSources");
+        for (i, c) in notes.iter().enumerate() {
+            let mut head = c.title.clone();
+            if let Some(o) = &c.organisation {
+                head.push_str(&format!(" — {o}"));
+            }
+            if let Some(d) = &c.date {
+                head.push_str(&format!(", {d}"));
+            }
+            let pages = match c.end_page {
+                Some(e) => format!("pp. {}-{e}", c.page),
+                None => format!("p. {}", c.page),
+            };
+            let _ = writeln!(out, "  [{}] {head}, {pages} ({})", i + 1, c.doc_id);
+            let _ = writeln!(out, "      \u{201C}{}\u{201D}", c.quote);
+        }
+    }
+    let struck: Vec<&VerifiedSentence> = a.struck().collect();
+    if !struck.is_empty() {
+        let _ = writeln!(out, "\nStruck by the verifier ({})", struck.len());
+        for s in struck {
+            let _ = writeln!(
+                out,
+                "  x \u{201C}{}\u{201D}\n      reason: {}",
+                s.text,
+                s.reason.as_deref().unwrap_or("not supported")
+            );
+        }
+    }
+    let _ = writeln!(out, "\n{}", wrap(&format!("Caution: {CAUTION}"), 78));
+    out
+}
+
+/// Footnote markers for a sentence's citations, numbering new sources in order.
+fn footnote_marks<'a>(
+    s: &'a VerifiedSentence,
+    notes: &mut Vec<&'a crate::types::Citation>,
+) -> String {
+    let mut m = String::new();
+    for cit in &s.citations {
+        let n = match notes
+            .iter()
+            .position(|x| x.doc_id == cit.doc_id && x.page == cit.page && x.quote == cit.quote)
+        {
+            Some(i) => i + 1,
+            None => {
+                notes.push(cit);
+                notes.len()
+            }
+        };
+        m.push_str(&format!("[{n}]"));
+    }
+    m
+}
+
+/// Greedy word wrap for terminal prose.
+pub fn wrap(s: &str, width: usize) -> String {
+    let mut out = String::new();
+    let mut line = 0;
+    for w in s.split_whitespace() {
+        if line > 0 && line + 1 + w.chars().count() > width {
+            out.push('\n');
+            line = 0;
+        } else if line > 0 {
+            out.push(' ');
+            line += 1;
+        }
+        out.push_str(w);
+        line += w.chars().count();
+    }
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn civil_dates() {
+        // Known points: the Unix epoch; 2000-02-29 is day 11016; 2024-12-31 is day 20088.
+        assert_eq!(civil_from_days(0), (1970, 1, 1));
+        assert_eq!(civil_from_days(11_016), (2000, 2, 29));
+        assert_eq!(civil_from_days(20_088), (2024, 12, 31));
+    }
+
+    #[test]
+    fn wrapping_keeps_words_whole() {
+        let w = wrap("one two three four five six", 9);
+        assert_eq!(w, "one two\nthree\nfour five\nsix");
+    }
+}

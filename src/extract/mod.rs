@@ -1,0 +1,169 @@
+//! Turns one source file into pages of text plus the metadata the file itself
+//! carries (a PDF's title, an e-mail's headers, an HTML page's title).
+//!
+//! invariant: extraction never edits the words of a page beyond decoding and
+//! line-ending normalisation; quotes must be findable in what it returns.
+//! invariant: nothing here touches the store or the index.
+
+mod eml;
+mod html;
+pub mod pdf;
+mod plain;
+
+use crate::types::DocMeta;
+use std::path::Path;
+
+/// The kinds of file ingest understands, chosen by file extension.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Kind {
+    Pdf,
+    Text,
+    Markdown,
+    Html,
+    Email,
+}
+
+impl Kind {
+    pub fn of(path: &Path) -> Option<Kind> {
+        let ext = path.extension()?.to_str()?.to_ascii_lowercase();
+        Some(match ext.as_str() {
+            "pdf" => Kind::Pdf,
+            "txt" | "text" => Kind::Text,
+            "md" | "markdown" => Kind::Markdown,
+            "html" | "htm" | "xhtml" => Kind::Html,
+            "eml" => Kind::Email,
+            _ => return None,
+        })
+    }
+
+    pub fn name(self) -> &'static str {
+        match self {
+            Kind::Pdf => "pdf",
+            Kind::Text => "text",
+            Kind::Markdown => "markdown",
+            Kind::Html => "html",
+            Kind::Email => "email",
+        }
+    }
+}
+
+/// What a file yields: pages (page 1 first), metadata found in the file,
+/// extra headers, and notes worth showing the user (not errors).
+#[derive(Debug, Clone, Default)]
+pub struct Extracted {
+    pub pages: Vec<String>,
+    pub meta: DocMeta,
+    pub headers: Option<serde_json::Value>,
+    pub notes: Vec<String>,
+}
+
+/// Why a file could not be extracted; shown to the user next to the path.
+#[derive(Debug, thiserror::Error)]
+pub enum ExtractError {
+    #[error(transparent)]
+    Pdf(#[from] pdf::PdfError),
+    #[error("the file is empty (no text)")]
+    Empty,
+    #[error("not a readable e-mail message: {0}")]
+    Email(String),
+}
+
+/// Extraction settings.
+#[derive(Debug, Clone, Copy)]
+pub struct ExtractOptions {
+    pub pdf_route: pdf::PdfRoute,
+}
+
+impl Default for ExtractOptions {
+    fn default() -> Self {
+        ExtractOptions {
+            pdf_route: pdf::default_route(),
+        }
+    }
+}
+
+/// Extract a file whose bytes are already read.
+pub fn extract(
+    path: &Path,
+    kind: Kind,
+    bytes: &[u8],
+    opts: &ExtractOptions,
+) -> Result<Extracted, ExtractError> {
+    let mut out = match kind {
+        Kind::Pdf => {
+            // PDF titles in released records are often tool debris ("Microsoft
+            // Word - memo.docx"), so the title comes from the manifest or the
+            // file name instead.
+            let _ = bytes;
+            Extracted {
+                pages: pdf::extract_pages(path, opts.pdf_route)?,
+                ..Default::default()
+            }
+        }
+        Kind::Text | Kind::Markdown => plain::extract(bytes, kind == Kind::Markdown),
+        Kind::Html => html::extract(bytes),
+        Kind::Email => eml::extract(bytes)?,
+    };
+    for p in &mut out.pages {
+        if p.contains('\r') {
+            *p = p.replace("\r\n", "\n").replace('\r', "\n");
+        }
+    }
+    if out.pages.iter().all(|p| p.trim().is_empty()) {
+        return Err(ExtractError::Empty);
+    }
+    Ok(out)
+}
+
+/// Decode bytes as UTF-8, or as Windows-1252 when they are not valid UTF-8
+/// (older records often are). Returns the text and whether the fallback was used.
+pub(crate) fn decode_text(bytes: &[u8]) -> (String, bool) {
+    let bytes = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(bytes);
+    match std::str::from_utf8(bytes) {
+        Ok(s) => (s.to_string(), false),
+        Err(_) => (bytes.iter().map(|&b| cp1252(b)).collect(), true),
+    }
+}
+
+fn cp1252(b: u8) -> char {
+    const HIGH: [char; 32] = [
+        '€', '\u{81}', '‚', 'ƒ', '„', '…', '†', '‡', 'ˆ', '‰', 'Š', '‹', 'Œ', '\u{8d}', 'Ž',
+        '\u{8f}', '\u{90}', '‘', '’', '“', '”', '•', '–', '—', '˜', '™', 'š', '›', 'œ', '\u{9d}',
+        'ž', 'Ÿ',
+    ];
+    match b {
+        0x80..=0x9F => HIGH[(b - 0x80) as usize],
+        _ => b as char,
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn kinds_by_extension() {
+        let cases = [
+            ("a.PDF", Some(Kind::Pdf)),
+            ("a.txt", Some(Kind::Text)),
+            ("a.md", Some(Kind::Markdown)),
+            ("a.htm", Some(Kind::Html)),
+            ("a.eml", Some(Kind::Email)),
+            ("a.docx", None),
+            ("noext", None),
+        ];
+        for (p, want) in cases {
+            assert_eq!(Kind::of(Path::new(p)), want, "{p}");
+        }
+    }
+
+    #[test]
+    fn windows_1252_fallback() {
+        // Windows-1252 code page table (Unicode's published mapping file
+        // CP1252.TXT): 0x93/0x94 are curly double quotes, 0xE9 is é.
+        let (s, fell_back) = decode_text(b"\x93caf\xe9\x94");
+        assert!(fell_back);
+        assert_eq!(s, "\u{201C}café\u{201D}");
+        assert_eq!(decode_text("é".as_bytes()), ("é".to_string(), false));
+    }
+}

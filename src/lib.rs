@@ -1,0 +1,34 @@
+//! onrecord answers questions from released public records and emits only
+//! sentences that a verbatim quote from a cited page supports.
+//!
+//! Data flow: `ingest` (extract → chunk → store + BM25) → `retrieve` →
+//! `draft` → `verify` → `answer` (emit). See DEVELOPERS.md for the code map
+//! and the invariants each module keeps.
+
+pub mod answer;
+pub mod bm25;
+pub mod chunk;
+pub mod demo;
+pub mod draft;
+pub mod error;
+pub mod eval;
+pub mod extract;
+pub mod ingest;
+pub mod manifest;
+pub mod retrieve;
+pub mod segment;
+pub mod store;
+pub mod text;
+pub mod types;
+pub mod verify;
+
+pub use error::{Error, Result};
+
+/// The folder of the open datasets used by external checks: the
+/// `ONRECORD_SHARED_DATA` variable, else `../shared/data` beside the project.
+pub fn shared_data_dir() -> std::path::PathBuf {
+    match std::env::var_os("ONRECORD_SHARED_DATA") {
+        Some(d) => d.into(),
+        None => std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../shared/data"),
+    }
+}

@@ -1,0 +1,501 @@
+//! The SQLite store: documents, pages and chunks, with character offsets into
+//! each page's text and content hashes. It is the source of truth; the BM25
+//! index is derived from it and can always be rebuilt.
+//!
+//! invariant: a document is replaced in one transaction: readers see the old
+//! version or the new one, never a mix, and a failure leaves the old one.
+//! invariant: the store refuses to open a file written in another format.
+//! invariant: chunk ids are never reused (AUTOINCREMENT).
+
+use crate::chunk::Chunk;
+use crate::error::{Error, Result};
+use crate::types::{ChunkId, DocId, DocMeta, Filters};
+use rusqlite::{Connection, OptionalExtension, params};
+use std::path::{Path, PathBuf};
+
+/// Format version of the store. Bump on any incompatible schema change.
+pub const STORE_FORMAT: u32 = 1;
+pub const STORE_FILE: &str = "store.sqlite";
+
+const SCHEMA: &str = "
+CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
+CREATE TABLE IF NOT EXISTS documents (
+    rowid INTEGER PRIMARY KEY,
+    doc_id TEXT NOT NULL UNIQUE,
+    source TEXT NOT NULL UNIQUE,
+    file_hash TEXT NOT NULL,
+    ingest_key TEXT NOT NULL,
+    kind TEXT NOT NULL,
+    title TEXT NOT NULL,
+    organisation TEXT,
+    date TEXT,
+    release TEXT,
+    url TEXT,
+    headers TEXT,
+    page_count INTEGER NOT NULL,
+    ingested_at INTEGER NOT NULL
+);
+CREATE TABLE IF NOT EXISTS pages (
+    doc INTEGER NOT NULL REFERENCES documents(rowid) ON DELETE CASCADE,
+    page INTEGER NOT NULL,
+    text TEXT NOT NULL,
+    hash TEXT NOT NULL,
+    PRIMARY KEY (doc, page)
+);
+CREATE TABLE IF NOT EXISTS chunks (
+    id INTEGER PRIMARY KEY AUTOINCREMENT,
+    doc INTEGER NOT NULL REFERENCES documents(rowid) ON DELETE CASCADE,
+    seq INTEGER NOT NULL,
+    start_page INTEGER NOT NULL,
+    start_char INTEGER NOT NULL,
+    end_page INTEGER NOT NULL,
+    end_char INTEGER NOT NULL,
+    text TEXT NOT NULL,
+    hash TEXT NOT NULL
+);
+CREATE INDEX IF NOT EXISTS chunks_doc ON chunks(doc);
+";
+
+/// A document ready to be written: its identity, metadata, pages and chunks.
+#[derive(Debug, Clone)]
+pub struct NewDocument {
+    pub doc_id: DocId,
+    /// Canonical path of the source file (or a synthetic `scheme:id` for in-memory corpora).
+    pub source: String,
+    pub file_hash: String,
+    /// Hash of the file, the metadata and the chunking settings: when it is
+    /// unchanged, re-ingesting the file does nothing.
+    pub ingest_key: String,
+    pub kind: String,
+    pub meta: DocMeta,
+    /// Extra headers (for e-mail: from, to, cc, subject, date), as JSON.
+    pub headers: Option<serde_json::Value>,
+    pub pages: Vec<String>,
+    pub chunks: Vec<Chunk>,
+}
+
+/// What the store knows about a source file already ingested.
+#[derive(Debug, Clone)]
+pub struct KnownSource {
+    pub doc_id: DocId,
+    pub file_hash: String,
+    /// Hash of the file, the metadata and the chunking settings it was stored with.
+    pub ingest_key: String,
+}
+
+/// A chunk with its document's descriptive fields, as search and drafting need it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct StoredChunk {
+    pub id: ChunkId,
+    pub doc_id: DocId,
+    pub title: String,
+    pub organisation: Option<String>,
+    pub date: Option<String>,
+    pub seq: u32,
+    pub start_page: u32,
+    pub start_char: usize,
+    pub end_page: u32,
+    pub end_char: usize,
+    pub text: String,
+    pub hash: String,
+}
+
+/// A summary row for a document.
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct DocSummary {
+    pub doc_id: DocId,
+    pub title: String,
+    pub organisation: Option<String>,
+    pub date: Option<String>,
+    pub release: Option<String>,
+    pub url: Option<String>,
+    pub kind: String,
+    pub pages: u32,
+    pub source: String,
+}
+
+pub struct Store {
+    conn: Connection,
+    path: PathBuf,
+}
+
+impl Store {
+    /// Open the store in `dir`, creating the directory and the store if needed.
+    pub fn open_or_create(dir: &Path) -> Result<Store> {
+        std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, e))?;
+        let path = dir.join(STORE_FILE);
+        let fresh = !path.exists();
+        let conn = Connection::open(&path).map_err(|e| Error::store(&path, e))?;
+        let store = Store { conn, path };
+        store.pragmas()?;
+        if fresh {
+            store.init()?;
+        } else {
+            store.check_format()?;
+        }
+        Ok(store)
+    }
+
+    /// Open an existing store; a missing one is an error that says how to make one.
+    pub fn open(dir: &Path) -> Result<Store> {
+        let path = dir.join(STORE_FILE);
+        if !path.exists() {
+            return Err(Error::NoIndex {
+                path: dir.to_path_buf(),
+            });
+        }
+        let conn = Connection::open(&path).map_err(|e| Error::store(&path, e))?;
+        let store = Store { conn, path };
+        store.pragmas()?;
+        store.check_format()?;
+        Ok(store)
+    }
+
+    pub fn path(&self) -> &Path {
+        &self.path
+    }
+
+    fn err(&self, e: rusqlite::Error) -> Error {
+        Error::store(&self.path, e)
+    }
+
+    fn pragmas(&self) -> Result<()> {
+        self.conn
+            .execute_batch(
+                "PRAGMA foreign_keys = ON; PRAGMA journal_mode = WAL; PRAGMA synchronous = NORMAL; \
+                 PRAGMA busy_timeout = 5000;",
+            )
+            .map_err(|e| self.err(e))
+    }
+
+    fn init(&self) -> Result<()> {
+        self.conn.execute_batch(SCHEMA).map_err(|e| self.err(e))?;
+        self.conn
+            .execute(
+                "INSERT OR REPLACE INTO meta(key, value) VALUES ('format', ?1), ('generation', '0')",
+                params![STORE_FORMAT.to_string()],
+            )
+            .map_err(|e| self.err(e))?;
+        Ok(())
+    }
+
+    fn check_format(&self) -> Result<()> {
+        let found: Option<String> = self
+            .conn
+            .query_row("SELECT value FROM meta WHERE key = 'format'", [], |r| {
+                r.get(0)
+            })
+            .optional()
+            .unwrap_or(None);
+        match found {
+            Some(v) if v == STORE_FORMAT.to_string() => Ok(()),
+            other => Err(Error::FormatMismatch {
+                path: self.path.clone(),
+                found: other.unwrap_or_else(|| "unknown (not an onrecord store)".into()),
+                expected: STORE_FORMAT,
+            }),
+        }
+    }
+
+    /// A counter bumped by every change; the BM25 index records the value it
+    /// was built at, so a stale index is detected and rebuilt.
+    pub fn generation(&self) -> Result<u64> {
+        let v: String = self
+            .conn
+            .query_row("SELECT value FROM meta WHERE key = 'generation'", [], |r| {
+                r.get(0)
+            })
+            .map_err(|e| self.err(e))?;
+        Ok(v.parse().unwrap_or(0))
+    }
+
+    pub fn known_source(&self, source: &str) -> Result<Option<KnownSource>> {
+        self.conn
+            .query_row(
+                "SELECT doc_id, file_hash, ingest_key FROM documents WHERE source = ?1",
+                params![source],
+                |r| {
+                    Ok(KnownSource {
+                        doc_id: DocId(r.get(0)?),
+                        file_hash: r.get(1)?,
+                        ingest_key: r.get(2)?,
+                    })
+                },
+            )
+            .optional()
+            .map_err(|e| self.err(e))
+    }
+
+    /// The source path that holds `doc_id`, if any.
+    pub fn source_of(&self, doc_id: &DocId) -> Result<Option<String>> {
+        self.conn
+            .query_row(
+                "SELECT source FROM documents WHERE doc_id = ?1",
+                params![doc_id.0],
+                |r| r.get(0),
+            )
+            .optional()
+            .map_err(|e| self.err(e))
+    }
+
+    /// Insert a document, or replace the one with the same source, in one
+    /// transaction. Returns the new chunks with their ids.
+    pub fn put_document(&mut self, doc: &NewDocument) -> Result<Vec<(ChunkId, Chunk)>> {
+        let path = self.path.clone();
+        let e = |e: rusqlite::Error| Error::store(&path, e);
+        let tx = self.conn.transaction().map_err(e)?;
+        tx.execute(
+            "DELETE FROM documents WHERE source = ?1",
+            params![doc.source],
+        )
+        .map_err(e)?;
+        let now = std::time::SystemTime::now()
+            .duration_since(std::time::UNIX_EPOCH)
+            .map(|d| d.as_secs() as i64)
+            .unwrap_or(0);
+        let title = doc
+            .meta
+            .title
+            .clone()
+            .unwrap_or_else(|| doc.doc_id.0.clone());
+        tx.execute(
+            "INSERT INTO documents(doc_id, source, file_hash, ingest_key, kind, title, organisation, date, release, url, headers, page_count, ingested_at)
+             VALUES (?1, ?2, ?3, ?13, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12)",
+            params![
+                doc.doc_id.0,
+                doc.source,
+                doc.file_hash,
+                doc.kind,
+                title,
+                doc.meta.organisation,
+                doc.meta.date,
+                doc.meta.release,
+                doc.meta.url,
+                doc.headers.as_ref().map(|h| h.to_string()),
+                doc.pages.len() as i64,
+                now,
+                doc.ingest_key
+            ],
+        )
+        .map_err(e)?;
+        let rowid = tx.last_insert_rowid();
+        {
+            let mut ins = tx
+                .prepare("INSERT INTO pages(doc, page, text, hash) VALUES (?1, ?2, ?3, ?4)")
+                .map_err(e)?;
+            for (i, p) in doc.pages.iter().enumerate() {
+                ins.execute(params![
+                    rowid,
+                    i as i64 + 1,
+                    p,
+                    crate::text::hash_hex(p.as_bytes())
+                ])
+                .map_err(e)?;
+            }
+        }
+        let mut out = Vec::with_capacity(doc.chunks.len());
+        {
+            let mut ins = tx
+                .prepare(
+                    "INSERT INTO chunks(doc, seq, start_page, start_char, end_page, end_char, text, hash)
+                     VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)",
+                )
+                .map_err(e)?;
+            for c in &doc.chunks {
+                ins.execute(params![
+                    rowid,
+                    c.seq,
+                    c.start_page,
+                    c.start_char as i64,
+                    c.end_page,
+                    c.end_char as i64,
+                    c.text,
+                    crate::text::hash_hex(c.text.as_bytes())
+                ])
+                .map_err(e)?;
+                out.push((ChunkId(tx.last_insert_rowid() as u64), c.clone()));
+            }
+        }
+        tx.execute(
+            "UPDATE meta SET value = CAST(value AS INTEGER) + 1 WHERE key = 'generation'",
+            [],
+        )
+        .map_err(e)?;
+        tx.commit().map_err(e)?;
+        Ok(out)
+    }
+
+    /// Look up chunks by id, with their documents' fields. Unknown ids are skipped.
+    pub fn chunks(&self, ids: &[ChunkId]) -> Result<Vec<StoredChunk>> {
+        let mut stmt = self
+            .conn
+            .prepare_cached(
+                "SELECT c.id, d.doc_id, d.title, d.organisation, d.date, c.seq, c.start_page, c.start_char,
+                        c.end_page, c.end_char, c.text, c.hash
+                 FROM chunks c JOIN documents d ON d.rowid = c.doc WHERE c.id = ?1",
+            )
+            .map_err(|e| self.err(e))?;
+        let mut out = Vec::with_capacity(ids.len());
+        for id in ids {
+            let row = stmt
+                .query_row(params![id.0 as i64], row_to_chunk)
+                .optional()
+                .map_err(|e| self.err(e))?;
+            out.extend(row);
+        }
+        Ok(out)
+    }
+
+    /// Every chunk in id order, for rebuilding derived indexes.
+    pub fn for_each_chunk(&self, mut f: impl FnMut(StoredChunk) -> Result<()>) -> Result<()> {
+        let mut stmt = self
+            .conn
+            .prepare(
+                "SELECT c.id, d.doc_id, d.title, d.organisation, d.date, c.seq, c.start_page, c.start_char,
+                        c.end_page, c.end_char, c.text, c.hash
+                 FROM chunks c JOIN documents d ON d.rowid = c.doc ORDER BY c.id",
+            )
+            .map_err(|e| self.err(e))?;
+        let rows = stmt.query_map([], row_to_chunk).map_err(|e| self.err(e))?;
+        for r in rows {
+            f(r.map_err(|e| self.err(e))?)?;
+        }
+        Ok(())
+    }
+
+    /// A page's text and content hash.
+    pub fn page(&self, doc_id: &DocId, page: u32) -> Result<Option<(String, String)>> {
+        self.conn
+            .query_row(
+                "SELECT p.text, p.hash FROM pages p JOIN documents d ON d.rowid = p.doc
+                 WHERE d.doc_id = ?1 AND p.page = ?2",
+                params![doc_id.0, page],
+                |r| Ok((r.get(0)?, r.get(1)?)),
+            )
+            .optional()
+            .map_err(|e| self.err(e))
+    }
+
+    /// All pages of a document, in order.
+    pub fn pages(&self, doc_id: &DocId) -> Result<Vec<String>> {
+        let mut stmt = self
+            .conn
+            .prepare(
+                "SELECT p.text FROM pages p JOIN documents d ON d.rowid = p.doc
+                 WHERE d.doc_id = ?1 ORDER BY p.page",
+            )
+            .map_err(|e| self.err(e))?;
+        let rows = stmt
+            .query_map(params![doc_id.0], |r| r.get::<_, String>(0))
+            .map_err(|e| self.err(e))?;
+        rows.collect::<rusqlite::Result<Vec<_>>>()
+            .map_err(|e| self.err(e))
+    }
+
+    /// The documents the filters allow, or `None` when there are no filters.
+    pub fn docs_matching(&self, f: &Filters) -> Result<Option<Vec<DocId>>> {
+        if f.is_empty() {
+            return Ok(None);
+        }
+        let mut sql = String::from("SELECT doc_id FROM documents WHERE 1=1");
+        let mut args: Vec<String> = Vec::new();
+        if let Some(from) = &f.from {
+            args.push(from.clone());
+            sql.push_str(&format!(
+                " AND date IS NOT NULL AND date >= ?{}",
+                args.len()
+            ));
+        }
+        if let Some(to) = &f.to {
+            // A prefix such as `2021` or `2021-06` covers the whole period.
+            args.push(to.clone());
+            let n = args.len();
+            sql.push_str(&format!(
+                " AND date IS NOT NULL AND (date <= ?{n} OR substr(date, 1, length(?{n})) = ?{n})"
+            ));
+        }
+        if let Some(org) = &f.org {
+            args.push(org.to_lowercase());
+            sql.push_str(&format!(
+                " AND instr(lower(coalesce(organisation, '')), ?{}) > 0",
+                args.len()
+            ));
+        }
+        if !f.docs.is_empty() {
+            let mut marks = Vec::new();
+            for d in &f.docs {
+                args.push(d.0.clone());
+                marks.push(format!("?{}", args.len()));
+            }
+            sql.push_str(&format!(" AND doc_id IN ({})", marks.join(",")));
+        }
+        let mut stmt = self.conn.prepare(&sql).map_err(|e| self.err(e))?;
+        let rows = stmt
+            .query_map(rusqlite::params_from_iter(args.iter()), |r| {
+                r.get::<_, String>(0).map(DocId)
+            })
+            .map_err(|e| self.err(e))?;
+        Ok(Some(
+            rows.collect::<rusqlite::Result<Vec<_>>>()
+                .map_err(|e| self.err(e))?,
+        ))
+    }
+
+    pub fn documents(&self) -> Result<Vec<DocSummary>> {
+        let mut stmt = self
+            .conn
+            .prepare(
+                "SELECT doc_id, title, organisation, date, release, url, kind, page_count, source
+                 FROM documents ORDER BY date, doc_id",
+            )
+            .map_err(|e| self.err(e))?;
+        let rows = stmt
+            .query_map([], |r| {
+                Ok(DocSummary {
+                    doc_id: DocId(r.get(0)?),
+                    title: r.get(1)?,
+                    organisation: r.get(2)?,
+                    date: r.get(3)?,
+                    release: r.get(4)?,
+                    url: r.get(5)?,
+                    kind: r.get(6)?,
+                    pages: r.get(7)?,
+                    source: r.get(8)?,
+                })
+            })
+            .map_err(|e| self.err(e))?;
+        rows.collect::<rusqlite::Result<Vec<_>>>()
+            .map_err(|e| self.err(e))
+    }
+
+    /// (documents, pages, chunks)
+    pub fn counts(&self) -> Result<(u64, u64, u64)> {
+        self.conn
+            .query_row(
+                "SELECT (SELECT count(*) FROM documents), (SELECT count(*) FROM pages), (SELECT count(*) FROM chunks)",
+                [],
+                |r| {
+                    let n = |i: usize| r.get::<_, i64>(i).map(|v| v as u64);
+                    Ok((n(0)?, n(1)?, n(2)?))
+                },
+            )
+            .map_err(|e| self.err(e))
+    }
+}
+
+fn row_to_chunk(r: &rusqlite::Row<'_>) -> rusqlite::Result<StoredChunk> {
+    Ok(StoredChunk {
+        id: ChunkId(r.get::<_, i64>(0)? as u64),
+        doc_id: DocId(r.get(1)?),
+        title: r.get(2)?,
+        organisation: r.get(3)?,
+        date: r.get(4)?,
+        seq: r.get(5)?,
+        start_page: r.get(6)?,
+        start_char: r.get::<_, i64>(7)? as usize,
+        end_page: r.get(8)?,
+        end_char: r.get::<_, i64>(9)? as usize,
+        text: r.get(10)?,
+        hash: r.get(11)?,
+    })
+}

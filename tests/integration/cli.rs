@@ -1,0 +1,116 @@
+//! The command line as a user meets it: exit codes, JSON output, help.
+
+use crate::support::write;
+use std::process::Command;
+
+fn onrecord(args: &[&str], index: &std::path::Path) -> std::process::Output {
+    Command::new(env!("CARGO_BIN_EXE_onrecord"))
+        .args(args)
+        .env("ONRECORD_INDEX", index)
+        .env_remove("RUST_LOG")
+        .output()
+        .expect("the binary runs")
+}
+
+#[test]
+fn ingest_search_and_ask_from_the_command_line() {
+    let src = tempfile::tempdir().unwrap();
+    let idx = tempfile::tempdir().unwrap();
+    write(
+        src.path(),
+        "minutes.txt",
+        "The board of the Port Aubrel Harbour Authority approved the dredging amendment of $1.4 million on 3 June 2020.",
+    );
+    write(src.path(), "broken.pdf", b"%PDF-1.7 garbage");
+    let src_arg = src.path().to_str().unwrap();
+
+    let out = onrecord(&["ingest", src_arg, "--json"], idx.path());
+    assert_eq!(
+        out.status.code(),
+        Some(1),
+        "a failed file makes ingest exit 1"
+    );
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(v["report"]["ingested"], 1);
+    assert_eq!(v["report"]["failed"], 1);
+    assert!(
+        v["diagnostics"][0]["path"]
+            .as_str()
+            .unwrap()
+            .ends_with("broken.pdf")
+    );
+
+    let out = onrecord(&["search", "dredging amendment", "--json"], idx.path());
+    assert!(out.status.success());
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(v["results"][0]["doc_id"], "minutes");
+    assert_eq!(v["results"][0]["page"], 1);
+
+    let out = onrecord(&["search", "dredging amendment"], idx.path());
+    let text = String::from_utf8(out.stdout).unwrap();
+    assert!(text.contains("«dredging» «amendment»"), "{text}");
+
+    let out = onrecord(
+        &[
+            "ask",
+            "How much was the dredging amendment the board approved?",
+            "--json",
+        ],
+        idx.path(),
+    );
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    for key in [
+        "schema_version",
+        "question",
+        "config",
+        "retrieved",
+        "sentences",
+        "caution",
+    ] {
+        assert!(v.get(key).is_some(), "answer record lacks {key}");
+    }
+    let s = &v["sentences"][0];
+    assert_eq!(s["verdict"], "supported");
+    for key in ["doc_id", "title", "page", "quote"] {
+        assert!(s["citations"][0].get(key).is_some(), "citation lacks {key}");
+    }
+    assert!(v["retrieved"][0]["hash"].as_str().unwrap().len() == 64);
+
+    let out = onrecord(&["ask", "How much was the dredging amendment?"], idx.path());
+    let text = String::from_utf8(out.stdout).unwrap();
+    assert!(
+        text.contains("Sources") && text.contains("Caution:"),
+        "{text}"
+    );
+}
+
+#[test]
+fn clear_errors_for_a_missing_index_and_bad_arguments() {
+    let idx = tempfile::tempdir().unwrap();
+    let out = onrecord(&["search", "anything"], &idx.path().join("nothing-here"));
+    assert_eq!(out.status.code(), Some(1));
+    let err = String::from_utf8(out.stderr).unwrap();
+    assert!(
+        err.contains("no index at") && err.contains("onrecord ingest"),
+        "{err}"
+    );
+
+    let out = onrecord(&["search", "x", "--from", "March 2020"], idx.path());
+    assert_eq!(out.status.code(), Some(2));
+    assert!(
+        String::from_utf8(out.stderr)
+            .unwrap()
+            .contains("YYYY-MM-DD")
+    );
+
+    let out = onrecord(&["--help"], idx.path());
+    let help = String::from_utf8(out.stdout).unwrap();
+    for cmd in ["ingest", "search", "ask", "demo", "eval"] {
+        assert!(help.contains(cmd), "help lacks {cmd}");
+    }
+}
