@@ -13,7 +13,7 @@
 
 use crate::draft::{DraftRequest, Drafter};
 use crate::error::Result;
-use crate::retrieve::Index;
+use crate::retrieve::{Index, Retrieved};
 use crate::types::{ChunkId, DocId, Filters};
 use crate::verify::{Judge, Verdict, VerifiedSentence, verify};
 use serde::{Deserialize, Serialize};
@@ -81,6 +81,30 @@ impl AnswerRecord {
     }
 }
 
+/// At most this many chunks of one document go to the drafter, so one long
+/// record (or a pile of copies of one e-mail) cannot crowd out the others.
+pub const MAX_CHUNKS_PER_DOC: usize = 3;
+
+/// Keep rank order, at most `per_doc` chunks per document, `k` in all;
+/// ranks are renumbered from 1.
+pub fn diversify(hits: Vec<Retrieved>, k: usize, per_doc: usize) -> Vec<Retrieved> {
+    let mut counts: HashMap<DocId, usize> = HashMap::new();
+    let mut out = Vec::with_capacity(k);
+    for mut h in hits {
+        let n = counts.entry(h.chunk.doc_id.clone()).or_default();
+        if *n >= per_doc {
+            continue;
+        }
+        *n += 1;
+        h.rank = out.len() + 1;
+        out.push(h);
+        if out.len() == k {
+            break;
+        }
+    }
+    out
+}
+
 /// Run the whole chain for one question.
 pub fn ask(
     index: &Index,
@@ -91,7 +115,11 @@ pub fn ask(
     drafter_settings: serde_json::Value,
     judge: &dyn Judge,
 ) -> Result<AnswerRecord> {
-    let retrieved = index.search(question, filters, k)?;
+    let retrieved = diversify(
+        index.search(question, filters, k * 3)?,
+        k,
+        MAX_CHUNKS_PER_DOC,
+    );
     let query_terms = index.query_terms(question)?;
     let draft = drafter.draft(&DraftRequest {
         question,

@@ -218,6 +218,21 @@ enum EvalCommand {
         #[arg(long)]
         json: bool,
     },
+    /// Calibrate and check when the extractive drafter abstains, on SQuAD v1.1.
+    ///
+    /// Odd-numbered articles are ingested and even-numbered ones left out, so
+    /// questions on the latter have no answer in the records. The threshold is
+    /// tuned on articles 1-24 and reported on articles 25-48.
+    Abstention {
+        /// The SQuAD v1.1 dev file (dev-v1.1.json).
+        #[arg(long, value_name = "FILE")]
+        squad: PathBuf,
+        /// Most questions per class and split.
+        #[arg(long, default_value_t = 600)]
+        cap: usize,
+        #[arg(long)]
+        json: bool,
+    },
 }
 
 pub fn run() -> Result<ExitCode> {
@@ -321,6 +336,63 @@ pub fn run() -> Result<ExitCode> {
             workdir,
             json,
         } => cmd_demo(source, &workdir, json),
+        Command::Eval(EvalCommand::Abstention { squad, cap, json }) => {
+            use onrecord::eval::squad::{at_threshold, best_threshold, score_range};
+            let tune_dir = tempfile::tempdir()?;
+            let report_dir = tempfile::tempdir()?;
+            let tune = score_range(&squad, 1..=24, cap, tune_dir.path())?;
+            let report = score_range(&squad, 25..=48, cap, report_dir.path())?;
+            let best = best_threshold(&tune);
+            let default = ExtractiveConfig::default().min_score;
+            let sweep: Vec<_> = (0..=20)
+                .map(|i| at_threshold(&tune, i as f32 * 0.05))
+                .collect();
+            let at_default = at_threshold(&report, default);
+            let mut out = std::io::stdout().lock();
+            if json {
+                writeln!(
+                    out,
+                    "{}",
+                    serde_json::to_string_pretty(&serde_json::json!({
+                        "tuned_on": "articles 1-24",
+                        "tuned": best,
+                        "default_threshold": default,
+                        "reported_on": "articles 25-48",
+                        "report_at_default": at_default,
+                        "report_at_tuned": at_threshold(&report, best.threshold),
+                        "sweep_tuning_split": sweep,
+                        "questions": {"tuning": tune.len(), "report": report.len()},
+                    }))?
+                )?;
+            } else {
+                writeln!(
+                    out,
+                    "threshold  answered  with-gold  abstained  J   (articles 1-24, {} questions)",
+                    tune.len()
+                )?;
+                for r in &sweep {
+                    writeln!(
+                        out,
+                        "  {:.2}      {:.3}     {:.3}      {:.3}     {:.3}",
+                        r.threshold, r.answered, r.answered_with_gold, r.abstained, r.youden_j
+                    )?;
+                }
+                writeln!(
+                    out,
+                    "tuned threshold {:.2} (default {:.2})",
+                    best.threshold, default
+                )?;
+                writeln!(
+                    out,
+                    "articles 25-48 at {:.2}: answered {:.3} (gold in top sentence {:.3}), abstained {:.3}",
+                    default,
+                    at_default.answered,
+                    at_default.answered_with_gold,
+                    at_default.abstained
+                )?;
+            }
+            Ok(ExitCode::SUCCESS)
+        }
         Command::Eval(EvalCommand::Retrieval {
             beir,
             split,

@@ -11,9 +11,9 @@ use std::path::{Path, PathBuf};
 
 /// Three questions the demo asks.
 pub const SAMPLE_QUESTIONS: [&str; 3] = [
-    "What was the value of the Pier 3 contract awarded to Brindlemoor?",
-    "Why did the old ferry ramp fail its structural inspection?",
-    "Did the Harbour Authority board approve the dredging contract amendment?",
+    "What was Brindlemoor's bid price for the Pier 3 rebuild?",
+    "Why was Ramp 3A closed in March 2022?",
+    "How many passengers travelled on the first sailing from the reopened terminal?",
 ];
 
 /// Where the demo sources are: `eval/demo` under the current folder, else

@@ -41,6 +41,13 @@ pub struct ExtractiveConfig {
     pub min_score: f32,
     /// MMR trade-off between relevance (1.0) and diversity (0.0).
     pub lambda: f32,
+    /// Credit (0..1) for a query term found in the sentence's chunk or its
+    /// document title but not in the sentence itself: the context that
+    /// makes "the options memo" or "in 2019" true of the sentence.
+    pub context_weight: f32,
+    /// Share (0..1) of the question's weighted terms that the sentence itself
+    /// must contain, whatever its context adds.
+    pub min_sentence_coverage: f32,
 }
 
 impl Default for ExtractiveConfig {
@@ -48,8 +55,10 @@ impl Default for ExtractiveConfig {
         ExtractiveConfig {
             top_chunks: 8,
             max_sentences: 3,
-            min_score: 0.5,
+            min_score: 0.40,
             lambda: 0.7,
+            context_weight: 0.75,
+            min_sentence_coverage: 0.2,
         }
     }
 }
@@ -87,16 +96,20 @@ impl Extractive {
         if total <= 0.0 {
             return Vec::new();
         }
-        let wants_number = wants_number(req.question);
+        let wants = AnswerKind::of(req.question);
         let mut seen: HashSet<(String, String)> = HashSet::new();
         let mut out = Vec::new();
         for (ci, r) in req.retrieved.iter().take(self.cfg.top_chunks).enumerate() {
             let text = &r.chunk.text;
+            let context: HashSet<String> = crate::text::terms(&format!("{} {text}", r.chunk.title))
+                .into_iter()
+                .filter(|t| weights.contains_key(t.as_str()))
+                .collect();
             for span in sentence_spans(text) {
                 let raw = &text[span];
                 let spans = term_spans(raw);
-                if spans.len() < 4 {
-                    continue; // headings, header lines, page furniture
+                if spans.len() < 4 || !prose_like(raw) {
+                    continue; // headings, header lines, tables, page furniture
                 }
                 let folded = fold_ws(raw);
                 if !seen.insert((r.chunk.doc_id.0.clone(), folded.clone())) {
@@ -110,16 +123,29 @@ impl Extractive {
                         positions.push(i);
                     }
                 }
-                if matched.is_empty() {
+                if matched.is_empty() || !wants.satisfied_by(raw, req.question) {
                     continue;
                 }
-                let coverage: f32 = matched.iter().map(|t| weights[t]).sum::<f32>() / total;
+                let in_context: f32 = context
+                    .iter()
+                    .filter(|t| !matched.contains(t.as_str()))
+                    .map(|t| weights[t.as_str()])
+                    .sum();
+                let own = matched.iter().map(|t| weights[t]).sum::<f32>() / total;
+                if own < self.cfg.min_sentence_coverage {
+                    continue;
+                }
+                let coverage = own + self.cfg.context_weight * in_context / total;
                 let window = positions.last().unwrap() - positions.first().unwrap() + 1;
                 let proximity = positions.len() as f32 / window as f32;
-                let mut score = coverage * (0.85 + 0.15 * proximity);
-                if wants_number && raw.chars().any(|c| c.is_ascii_digit()) {
-                    score += 0.05;
-                }
+                // Long sentences match more terms by chance and quote badly.
+                let words = spans.len() as f32;
+                let length = if words > LONG_SENTENCE {
+                    (LONG_SENTENCE / words).sqrt()
+                } else {
+                    1.0
+                };
+                let mut score = coverage * (0.85 + 0.15 * proximity) * length;
                 score += 0.03 / r.rank as f32;
                 out.push(Candidate {
                     chunk_idx: ci,
@@ -135,22 +161,227 @@ impl Extractive {
     }
 }
 
-fn wants_number(q: &str) -> bool {
-    let q = q.to_lowercase();
+/// Sentences longer than this many terms are scored down.
+const LONG_SENTENCE: f32 = 45.0;
+
+/// Whether a sentence reads as prose rather than a heading, a table row or
+/// a rule: mostly lower-case letters, not mostly digits, no long rules.
+fn prose_like(s: &str) -> bool {
+    let letters = s.chars().filter(|c| c.is_alphabetic()).count();
+    let upper = s.chars().filter(|c| c.is_uppercase()).count();
+    let digits = s.chars().filter(|c| c.is_ascii_digit()).count();
+    letters >= 12
+        && upper * 2 < letters
+        && digits * 3 < letters
+        && !s.contains("-----")
+        && !s.contains("_____")
+        && !s.contains("=====")
+        && !s.contains('\u{a9}')
+        && !is_header_line(s)
+}
+
+/// Distribution and header lines ("cc: ...", "From: ...") are not statements.
+fn is_header_line(s: &str) -> bool {
+    let head = s.trim_start().to_ascii_lowercase();
     [
-        "how much",
-        "how many",
-        "what amount",
-        "cost",
-        "when",
-        "what date",
-        "how long",
-        "what year",
-        "percentage",
-        "how big",
+        "cc:",
+        "bcc:",
+        "from:",
+        "to:",
+        "subject:",
+        "re:",
+        "date:",
+        "sent:",
+        "attachments:",
     ]
     .iter()
-    .any(|k| q.contains(k))
+    .any(|k| head.starts_with(k))
+}
+
+/// What kind of answer a question asks for, when its wording says so.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum AnswerKind {
+    /// An amount of money: the sentence must state a currency amount the question does not.
+    Money,
+    /// A count, quantity or duration: the sentence must state a number the
+    /// question does not, outside any date, time of day or label ("Pier 3").
+    Quantity,
+    /// A date: the sentence must state a date or year the question does not.
+    Date,
+    Any,
+}
+
+impl AnswerKind {
+    pub fn of(question: &str) -> AnswerKind {
+        let q = format!(" {} ", question.to_lowercase());
+        const MONEY: &[&str] = &[
+            "what amount",
+            "how much money",
+            " cost",
+            " price",
+            " paid ",
+            " pay ",
+            " worth",
+            " fee ",
+            " fees ",
+            "salary",
+            " spend",
+            " spent",
+        ];
+        const DATE: &[&str] = &[
+            " when ",
+            "what date",
+            "which date",
+            "what day",
+            "what year",
+            "which year",
+        ];
+        const QUANTITY: &[&str] = &[
+            "how much",
+            "how many",
+            "how long",
+            "how far",
+            "how old",
+            "how big",
+            "how large",
+            "what percentage",
+            "what share",
+            "what proportion",
+        ];
+        if MONEY.iter().any(|k| q.contains(k)) {
+            AnswerKind::Money
+        } else if DATE.iter().any(|k| q.contains(k)) {
+            AnswerKind::Date
+        } else if QUANTITY.iter().any(|k| q.contains(k)) {
+            AnswerKind::Quantity
+        } else {
+            AnswerKind::Any
+        }
+    }
+
+    /// Whether `sentence` can answer a question of this kind; `question` is
+    /// the question itself, whose own figures do not count as an answer.
+    pub fn satisfied_by(self, sentence: &str, question: &str) -> bool {
+        let fresh = |found: HashSet<String>, asked: HashSet<String>| {
+            found.iter().any(|n| !asked.contains(n))
+        };
+        match self {
+            AnswerKind::Any => true,
+            AnswerKind::Quantity => fresh(quantities(sentence), quantities(question)),
+            AnswerKind::Money => fresh(money(sentence), money(question)),
+            AnswerKind::Date => fresh(dates_and_years(sentence), dates_and_years(question)),
+        }
+    }
+}
+
+fn number_re() -> &'static regex::Regex {
+    static RE: std::sync::LazyLock<regex::Regex> = std::sync::LazyLock::new(|| {
+        regex::Regex::new(
+            r"\b\d{1,2}:\d{2}\b|(?:[$€£]\s?)?\d[\d,]*(?:\.\d+)?(?:\s?(?:million|billion|thousand|dollars|m\b|k\b))?",
+        )
+        .expect("static regex")
+    });
+    &RE
+}
+
+fn digits(m: &str) -> String {
+    m.chars()
+        .filter(|c| c.is_ascii_digit() || *c == '.')
+        .collect::<String>()
+        .trim_end_matches('.')
+        .to_string()
+}
+
+/// Numbers that state a quantity: not in a date, not a time of day, and not
+/// a label such as "Pier 3", "No. 4" or "90X".
+fn quantities(s: &str) -> HashSet<String> {
+    const WORDS: &[&str] = &[
+        "two",
+        "three",
+        "four",
+        "five",
+        "six",
+        "seven",
+        "eight",
+        "nine",
+        "ten",
+        "eleven",
+        "twelve",
+        "twenty",
+        "thirty",
+        "forty",
+        "fifty",
+        "hundred",
+        "hundreds",
+        "thousand",
+        "thousands",
+        "million",
+        "millions",
+        "dozen",
+        "half",
+        "quarter",
+        "third",
+    ];
+    let (_, rest) = crate::verify::dates(s);
+    let mut out: HashSet<String> = number_re()
+        .find_iter(&rest)
+        .filter(|m| {
+            let before = rest[..m.start()].trim_end();
+            let after = rest[m.end()..].chars().next();
+            let glued = rest[..m.start()]
+                .chars()
+                .next_back()
+                .is_some_and(|c| !c.is_whitespace() && !matches!(c, '(' | '"' | '\u{201C}'));
+            let label = glued
+                || before
+                    .rsplit(|c: char| c.is_whitespace())
+                    .next()
+                    .is_some_and(|w| {
+                        w.chars().next().is_some_and(char::is_uppercase) || w.ends_with('.')
+                    });
+            let year = m.as_str().len() == 4 && is_year(m.as_str());
+            !m.as_str().contains(':') && !after.is_some_and(char::is_alphabetic) && !label && !year
+        })
+        .map(|m| digits(m.as_str()))
+        .filter(|d| !d.is_empty())
+        .collect();
+    for w in rest.split(|c: char| !c.is_alphabetic()) {
+        let w = w.to_lowercase();
+        if WORDS.contains(&w.as_str()) {
+            out.insert(w);
+        }
+    }
+    out
+}
+
+fn is_year(s: &str) -> bool {
+    s.parse::<u32>().is_ok_and(|y| (1500..2200).contains(&y))
+}
+
+/// Currency amounts, as digit strings.
+fn money(s: &str) -> HashSet<String> {
+    number_re()
+        .find_iter(s)
+        .map(|m| m.as_str())
+        .filter(|m| {
+            m.starts_with(['$', '€', '£'])
+                || m.ends_with("million")
+                || m.ends_with("billion")
+                || m.ends_with("dollars")
+        })
+        .map(digits)
+        .collect()
+}
+
+/// Dates (ISO keys) and four-digit years.
+fn dates_and_years(s: &str) -> HashSet<String> {
+    static YEAR: std::sync::LazyLock<regex::Regex> = std::sync::LazyLock::new(|| {
+        regex::Regex::new(r"\b(1[5-9]\d\d|2[01]\d\d)s?\b").expect("static regex")
+    });
+    let (ds, rest) = crate::verify::dates(s);
+    let mut out: HashSet<String> = ds.into_iter().map(|(_, k)| k).collect();
+    out.extend(YEAR.find_iter(&rest).map(|m| m.as_str().to_string()));
+    out
 }
 
 fn jaccard(a: &HashSet<String>, b: &HashSet<String>) -> f32 {
@@ -168,16 +399,24 @@ impl Drafter for Extractive {
         let cands = self.candidates(req);
         let best = cands.first().map(|c| c.score).unwrap_or(0.0);
         if best < self.cfg.min_score {
+            let reason = if req.retrieved.is_empty() {
+                "no record matched the question".to_string()
+            } else if cands.is_empty() {
+                match AnswerKind::of(req.question) {
+                    AnswerKind::Money => "no retrieved sentence states an amount of money the question does not already give".into(),
+                    AnswerKind::Quantity => "no retrieved sentence states a number the question does not already give".into(),
+                    AnswerKind::Date => "no retrieved sentence states a date the question does not already give".into(),
+                    AnswerKind::Any => "no retrieved sentence shares enough of the question's words".into(),
+                }
+            } else {
+                format!(
+                    "the retrieved records do not answer this question (best sentence scored {best:.2}, below the {:.2} threshold)",
+                    self.cfg.min_score
+                )
+            };
             return Ok(Draft {
                 sentences: vec![],
-                abstain: Some(if req.retrieved.is_empty() {
-                    "no record matched the question".into()
-                } else {
-                    format!(
-                        "the retrieved records do not answer this question (best sentence scored {best:.2}, below the {:.2} threshold)",
-                        self.cfg.min_score
-                    )
-                }),
+                abstain: Some(reason),
             });
         }
         // Maximal marginal relevance over the candidates that still clear a
@@ -222,5 +461,101 @@ impl Drafter for Extractive {
                 .collect(),
             abstain: None,
         })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn answer_kinds_from_question_wording() {
+        let cases = [
+            (
+                "What amount did the contractor claim for the delay?",
+                AnswerKind::Money,
+            ),
+            (
+                "What does the yearly cost of the buses come to?",
+                AnswerKind::Money,
+            ),
+            (
+                "How many passengers took the first sailing?",
+                AnswerKind::Quantity,
+            ),
+            ("When was the ramp closed?", AnswerKind::Date),
+            ("By what date was the work due?", AnswerKind::Date),
+            ("Which option did the engineers recommend?", AnswerKind::Any),
+        ];
+        for (q, want) in cases {
+            assert_eq!(AnswerKind::of(q), want, "{q}");
+        }
+    }
+
+    #[test]
+    fn a_sentence_must_add_the_kind_of_fact_asked_for() {
+        // (question, sentence, can it answer?)
+        let cases = [
+            (
+                "How many passengers sailed on 22 April 2024?",
+                "The terminal reopened on 22 April 2024 with the first sailing at 06:15.",
+                false,
+            ),
+            (
+                "How many passengers sailed on 22 April 2024?",
+                "The rebuilt Pier 3 terminal reopened after a closure that began on 2 May 2022.",
+                false,
+            ),
+            (
+                "How many passengers sailed on 22 April 2024?",
+                "On 22 April 2024, 1,240 passengers sailed.",
+                true,
+            ),
+            (
+                "How many bids were received?",
+                "Four firms submitted bids.",
+                true,
+            ),
+            (
+                "How many passengers sailed?",
+                "The terminal is expected to reopen in the autumn of 2023.",
+                false,
+            ),
+            (
+                "What amount did Brindlemoor claim in October 2023?",
+                "The claim covers 18 weeks of delay.",
+                false,
+            ),
+            (
+                "What amount did Brindlemoor claim in October 2023?",
+                "The claim is for $1.86 million.",
+                true,
+            ),
+            (
+                "When was the ramp closed?",
+                "The ramp was closed to vehicles on 14 March 2022.",
+                true,
+            ),
+            (
+                "When was the ramp closed?",
+                "The ramp was closed after the inspection.",
+                false,
+            ),
+            ("What happened in 2019?", "Anything at all.", true),
+        ];
+        for (q, s, want) in cases {
+            assert_eq!(AnswerKind::of(q).satisfied_by(s, q), want, "{q} / {s}");
+        }
+    }
+
+    #[test]
+    fn header_lines_are_not_prose() {
+        assert!(!prose_like(
+            "cc: Chair, Public Accounts Committee, Deputy Minister"
+        ));
+        assert!(!prose_like("BRINDLEMOOR AMENDMENT No. 4 NEW RAMP"));
+        assert!(prose_like(
+            "The board approved the amendment on 3 June 2020."
+        ));
     }
 }

@@ -6,3 +6,4 @@
 
 pub mod beir;
 pub mod metrics;
+pub mod squad;

@@ -80,6 +80,27 @@ fn ingest_search_and_ask_from_the_command_line() {
         assert!(s["citations"][0].get(key).is_some(), "citation lacks {key}");
     }
     assert!(v["retrieved"][0]["hash"].as_str().unwrap().len() == 64);
+    let schema: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string(concat!(
+            env!("CARGO_MANIFEST_DIR"),
+            "/eval/answer-record.schema.json"
+        ))
+        .unwrap(),
+    )
+    .unwrap();
+    let problems = crate::support::schema_problems(&v, &schema, "$");
+    assert!(
+        problems.is_empty(),
+        "answer record breaks its schema: {problems:#?}"
+    );
+    // The checker itself rejects a record that breaks the schema.
+    let mut broken = v.clone();
+    broken["sentences"][0]["verdict"] = "maybe".into();
+    broken.as_object_mut().unwrap().remove("question");
+    assert_eq!(
+        crate::support::schema_problems(&broken, &schema, "$").len(),
+        2
+    );
 
     let out = onrecord(&["ask", "How much was the dredging amendment?"], idx.path());
     let text = String::from_utf8(out.stdout).unwrap();

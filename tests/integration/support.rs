@@ -50,3 +50,59 @@ pub fn ingest_with(
 ) -> (Report, Vec<Diagnostic>) {
     ingest_paths(index, paths, cfg).expect("ingest runs")
 }
+
+/// Check `v` against the subset of JSON Schema the project's schema files
+/// use (type, required, properties, items, enum, const). Returns the
+/// problems found, each with its JSON path.
+pub fn schema_problems(v: &serde_json::Value, schema: &serde_json::Value, at: &str) -> Vec<String> {
+    use serde_json::Value;
+    let mut out = Vec::new();
+    if let Some(t) = schema.get("type").and_then(Value::as_str) {
+        let ok = match t {
+            "object" => v.is_object(),
+            "array" => v.is_array(),
+            "string" => v.is_string(),
+            "integer" => v.is_i64() || v.is_u64(),
+            "number" => v.is_number(),
+            "boolean" => v.is_boolean(),
+            _ => true,
+        };
+        if !ok {
+            out.push(format!("{at}: expected {t}, got {v}"));
+            return out;
+        }
+    }
+    if let Some(c) = schema.get("const")
+        && v != c
+    {
+        out.push(format!("{at}: expected {c}, got {v}"));
+    }
+    if let Some(e) = schema.get("enum").and_then(Value::as_array)
+        && !e.contains(v)
+    {
+        out.push(format!("{at}: {v} is not one of {e:?}"));
+    }
+    if let Some(req) = schema.get("required").and_then(Value::as_array) {
+        for k in req.iter().filter_map(Value::as_str) {
+            if v.get(k).is_none() {
+                out.push(format!("{at}: missing `{k}`"));
+            }
+        }
+    }
+    if let (Some(props), Some(obj)) = (
+        schema.get("properties").and_then(Value::as_object),
+        v.as_object(),
+    ) {
+        for (k, sub) in props {
+            if let Some(val) = obj.get(k) {
+                out.extend(schema_problems(val, sub, &format!("{at}.{k}")));
+            }
+        }
+    }
+    if let (Some(items), Some(arr)) = (schema.get("items"), v.as_array()) {
+        for (i, val) in arr.iter().enumerate() {
+            out.extend(schema_problems(val, items, &format!("{at}[{i}]")));
+        }
+    }
+    out
+}
