@@ -95,8 +95,10 @@ pub fn extract(
             // Word - memo.docx"), so the title comes from the manifest or the
             // file name instead.
             let _ = bytes;
+            let (pages, notes) = pdf_with_fallback(path, opts.pdf_route)?;
             Extracted {
-                pages: pdf::extract_pages(path, opts.pdf_route)?,
+                pages,
+                notes,
                 ..Default::default()
             }
         }
@@ -113,6 +115,36 @@ pub fn extract(
         return Err(ExtractError::Empty);
     }
     Ok(out)
+}
+
+/// Read a PDF with `route`; when that reader fails on a file that the
+/// parser could open, try the other reader (when installed) and say so.
+fn pdf_with_fallback(
+    path: &Path,
+    route: pdf::PdfRoute,
+) -> Result<(Vec<String>, Vec<String>), pdf::PdfError> {
+    use pdf::{PdfError, PdfRoute, extract_pages};
+    match extract_pages(path, route) {
+        Err(PdfError::Corrupt(first)) => {
+            let other = match route {
+                PdfRoute::Pdftotext => PdfRoute::PureRust,
+                PdfRoute::PureRust if pdf::default_route() == PdfRoute::Pdftotext => {
+                    PdfRoute::Pdftotext
+                }
+                PdfRoute::PureRust => return Err(PdfError::Corrupt(first)),
+            };
+            match extract_pages(path, other) {
+                Ok(pages) => Ok((
+                    pages,
+                    vec![format!(
+                        "read with the other PDF reader ({other:?}) after: {first}"
+                    )],
+                )),
+                Err(_) => Err(PdfError::Corrupt(first)),
+            }
+        }
+        other => other.map(|p| (p, Vec::new())),
+    }
 }
 
 /// Decode bytes as UTF-8, or as Windows-1252 when they are not valid UTF-8
@@ -155,6 +187,44 @@ mod tests {
         for (p, want) in cases {
             assert_eq!(Kind::of(Path::new(p)), want, "{p}");
         }
+    }
+
+    /// A page tree without /MediaBox crashes the built-in reader; poppler
+    /// reads it, so ingest falls back to it and notes the fact.
+    #[test]
+    fn a_reader_failure_falls_back_to_the_other_reader() {
+        if pdf::default_route() != pdf::PdfRoute::Pdftotext {
+            assert!(
+                std::env::var("CI").map_or(true, |v| v != "true"),
+                "pdftotext is required under CI=true"
+            );
+            eprintln!("pdftotext not installed; skipped");
+            return;
+        }
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("nobox.pdf");
+        let page = pdf::PdfPage {
+            lines: vec!["The ramp was closed on 18 March 2022.".into()],
+        };
+        pdf::write_text_pdf(&path, "t", &[page]).unwrap();
+        let mut doc = lopdf::Document::load(&path).unwrap();
+        let pages_id = doc
+            .catalog()
+            .unwrap()
+            .get(b"Pages")
+            .unwrap()
+            .as_reference()
+            .unwrap();
+        doc.get_dictionary_mut(pages_id)
+            .unwrap()
+            .remove(b"MediaBox");
+        doc.save(&path).unwrap();
+        let opts = ExtractOptions {
+            pdf_route: pdf::PdfRoute::PureRust,
+        };
+        let x = extract(&path, Kind::Pdf, &[], &opts).unwrap();
+        assert!(x.pages[0].contains("The ramp was closed on 18 March 2022."));
+        assert!(x.notes[0].contains("other PDF reader"), "{:?}", x.notes);
     }
 
     #[test]
