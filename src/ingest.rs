@@ -134,7 +134,6 @@ pub fn slug(name: &str) -> String {
 
 struct Run<'a> {
     store: &'a mut Store,
-    bm25: &'a Bm25Index,
     cfg: &'a IngestConfig,
     report: Report,
     diags: Vec<Diagnostic>,
@@ -155,7 +154,6 @@ pub fn ingest_paths(
     let bar = progress_bar(cfg.progress, files.len() as u64, "files");
     let mut run = Run {
         store: &mut store,
-        bm25: &bm25,
         cfg,
         report: Report {
             failed: failed_paths,
@@ -226,7 +224,7 @@ pub fn ingest_docs(
             pages: d.pages,
             chunks,
         };
-        let (p, c) = store_and_index(&mut store, &bm25, &mut writer, &doc)?;
+        let (p, c) = store_and_index(&mut store, &mut writer, &doc)?;
         report.ingested += 1;
         report.pages += p;
         report.chunks += c;
@@ -240,11 +238,9 @@ pub fn ingest_docs(
 
 fn store_and_index(
     store: &mut Store,
-    bm25: &Bm25Index,
     writer: &mut crate::bm25::Bm25Writer<'_>,
     doc: &NewDocument,
 ) -> Result<(usize, usize)> {
-    let _ = bm25;
     let stored = store.put_document(doc)?;
     writer.delete_doc(&doc.doc_id);
     let title = doc
@@ -413,7 +409,7 @@ impl Run<'_> {
             pages: extracted.pages,
             chunks,
         };
-        let (p, c) = store_and_index(self.store, self.bm25, writer, &doc)?;
+        let (p, c) = store_and_index(self.store, writer, &doc)?;
         self.report.ingested += 1;
         if known.is_some() {
             self.report.replaced += 1;

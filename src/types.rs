@@ -29,15 +29,6 @@ impl fmt::Display for ChunkId {
     }
 }
 
-/// A character range (Unicode scalar values, end exclusive) on one page.
-/// Pages are numbered from 1.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
-pub struct PageSpan {
-    pub page: u32,
-    pub start: usize,
-    pub end: usize,
-}
-
 /// Descriptive metadata of a document, from the manifest, flags or the file.
 #[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
 pub struct DocMeta {

@@ -83,6 +83,8 @@ impl Default for ExtractOptions {
 }
 
 /// Extract a file whose bytes are already read.
+/// `bytes` are the file's contents, already read for hashing; the PDF
+/// readers read `path` themselves.
 pub fn extract(
     path: &Path,
     kind: Kind,
@@ -91,10 +93,10 @@ pub fn extract(
 ) -> Result<Extracted, ExtractError> {
     let mut out = match kind {
         Kind::Pdf => {
-            // PDF titles in released records are often tool debris ("Microsoft
-            // Word - memo.docx"), so the title comes from the manifest or the
-            // file name instead.
-            let _ = bytes;
+            // The PDF readers work from the path (pdftotext needs one). PDF
+            // titles in released records are often tool debris ("Word -
+            // memo.docx"), so the title comes from the manifest or the file
+            // name instead.
             let (pages, notes) = pdf_with_fallback(path, opts.pdf_route)?;
             Extracted {
                 pages,
@@ -207,18 +209,7 @@ mod tests {
             lines: vec!["The ramp was closed on 18 March 2022.".into()],
         };
         pdf::write_text_pdf(&path, "t", &[page]).unwrap();
-        let mut doc = lopdf::Document::load(&path).unwrap();
-        let pages_id = doc
-            .catalog()
-            .unwrap()
-            .get(b"Pages")
-            .unwrap()
-            .as_reference()
-            .unwrap();
-        doc.get_dictionary_mut(pages_id)
-            .unwrap()
-            .remove(b"MediaBox");
-        doc.save(&path).unwrap();
+        pdf::remove_media_box(&path);
         let opts = ExtractOptions {
             pdf_route: pdf::PdfRoute::PureRust,
         };

@@ -627,6 +627,24 @@ fn quietly<T>(f: impl FnOnce() -> T) -> Result<T, String> {
     })
 }
 
+/// Test fixture: drop the page tree's /MediaBox from a PDF, which the
+/// built-in reader cannot handle and poppler reads as US Letter.
+#[cfg(test)]
+pub(crate) fn remove_media_box(path: &Path) {
+    let mut doc = Document::load(path).unwrap();
+    let pages_id = doc
+        .catalog()
+        .unwrap()
+        .get(b"Pages")
+        .unwrap()
+        .as_reference()
+        .unwrap();
+    doc.get_dictionary_mut(pages_id)
+        .unwrap()
+        .remove(b"MediaBox");
+    doc.save(path).unwrap();
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -819,18 +837,7 @@ mod tests {
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("nobox.pdf");
         write_text_pdf(&path, "t", &sample_pages()).unwrap();
-        let mut doc = Document::load(&path).unwrap();
-        let pages_id = doc
-            .catalog()
-            .unwrap()
-            .get(b"Pages")
-            .unwrap()
-            .as_reference()
-            .unwrap();
-        doc.get_dictionary_mut(pages_id)
-            .unwrap()
-            .remove(b"MediaBox");
-        doc.save(&path).unwrap();
+        remove_media_box(&path);
         match extract_pages(&path, PdfRoute::PureRust) {
             Err(PdfError::Corrupt(reason)) => assert!(reason.contains("crashed"), "{reason}"),
             other => panic!("expected Corrupt, got {other:?}"),
