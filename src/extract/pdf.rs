@@ -424,7 +424,7 @@ pub fn extract_pages(path: &Path, route: PdfRoute) -> Result<Vec<String>, PdfErr
     let raw = match route {
         PdfRoute::Pdftotext => {
             drop(doc);
-            pdftotext_pages(path)?
+            pdftotext_pages(path, page_count)?
         }
         PdfRoute::PureRust => pure_rust_pages(doc)?,
     };
@@ -457,21 +457,76 @@ fn load_checked(bytes: &[u8]) -> Result<Document, PdfError> {
 }
 
 /// Runs `pdftotext` and splits its output into pages on form feeds.
-fn pdftotext_pages(path: &Path) -> Result<Vec<String>, PdfError> {
+/// A finished child: exit status, stdout, stderr.
+type Finished = (std::process::ExitStatus, Vec<u8>, Vec<u8>);
+
+/// Runs `cmd` to completion, or kills it after `limit`. Returns the exit
+/// status, stdout and stderr, or `None` on time-out.
+fn output_within(
+    mut cmd: Command,
+    limit: std::time::Duration,
+) -> std::io::Result<Option<Finished>> {
+    use std::io::Read;
+    let mut child = cmd
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()?;
+    let mut out = child.stdout.take().expect("piped stdout");
+    let mut err = child.stderr.take().expect("piped stderr");
+    let out_reader = std::thread::spawn(move || {
+        let mut v = Vec::new();
+        let _ = out.read_to_end(&mut v);
+        v
+    });
+    let err_reader = std::thread::spawn(move || {
+        let mut v = Vec::new();
+        let _ = err.read_to_end(&mut v);
+        v
+    });
+    let deadline = std::time::Instant::now() + limit;
+    let status = loop {
+        if let Some(status) = child.try_wait()? {
+            break Some(status);
+        }
+        if std::time::Instant::now() >= deadline {
+            let _ = child.kill();
+            let _ = child.wait();
+            break None;
+        }
+        std::thread::sleep(std::time::Duration::from_millis(10));
+    };
+    let stdout = out_reader.join().unwrap_or_default();
+    let stderr = err_reader.join().unwrap_or_default();
+    Ok(status.map(|st| (st, stdout, stderr)))
+}
+
+/// How long pdftotext may take on a file of `pages` pages before the file is
+/// given up on (a hostile file must not stall an ingest).
+fn pdftotext_limit(pages: usize) -> std::time::Duration {
+    std::time::Duration::from_secs(60 + 2 * pages as u64)
+}
+
+fn pdftotext_pages(path: &Path, pages_hint: usize) -> Result<Vec<String>, PdfError> {
     // A relative path starting with '-' would be read as an option.
     let arg: PathBuf = if path.is_relative() && path.to_string_lossy().starts_with('-') {
         Path::new(".").join(path)
     } else {
         path.to_path_buf()
     };
-    let out = Command::new("pdftotext")
-        .args(["-layout", "-enc", "UTF-8", "-eol", "unix"])
+    let mut cmd = Command::new("pdftotext");
+    cmd.args(["-layout", "-enc", "UTF-8", "-eol", "unix"])
         .arg(&arg)
         .arg("-")
-        .stdin(std::process::Stdio::null())
-        .output()?;
-    let stderr = String::from_utf8_lossy(&out.stderr);
-    if !out.status.success() {
+        .stdin(std::process::Stdio::null());
+    let limit = pdftotext_limit(pages_hint);
+    let Some((status, stdout, stderr)) = output_within(cmd, limit)? else {
+        return Err(PdfError::Corrupt(format!(
+            "pdftotext did not finish within {} s; the file was given up on",
+            limit.as_secs()
+        )));
+    };
+    let stderr = String::from_utf8_lossy(&stderr);
+    if !status.success() {
         if stderr.to_ascii_lowercase().contains("password") {
             return Err(PdfError::Encrypted);
         }
@@ -481,11 +536,10 @@ fn pdftotext_pages(path: &Path) -> Result<Vec<String>, PdfError> {
             .find(|l| !l.is_empty())
             .unwrap_or("no message");
         return Err(PdfError::Corrupt(short(&format!(
-            "pdftotext failed ({}): {first}",
-            out.status
+            "pdftotext failed ({status}): {first}"
         ))));
     }
-    let text = String::from_utf8_lossy(&out.stdout);
+    let text = String::from_utf8_lossy(&stdout);
     let mut pages: Vec<String> = text.split('\x0c').map(str::to_string).collect();
     if pages.last().is_some_and(|p| p.is_empty()) {
         pages.pop();
@@ -828,6 +882,28 @@ mod tests {
                 "{route:?}"
             );
         }
+    }
+
+    /// A child that outlives its limit is killed and reported as a time-out;
+    /// one that finishes returns its output.
+    #[test]
+    fn slow_helpers_are_stopped() {
+        let mut slow = Command::new("sleep");
+        slow.arg("5");
+        let t = std::time::Instant::now();
+        assert!(
+            output_within(slow, std::time::Duration::from_millis(100))
+                .unwrap()
+                .is_none()
+        );
+        assert!(t.elapsed() < std::time::Duration::from_secs(4));
+        let mut quick = Command::new("echo");
+        quick.arg("done");
+        let (status, out, _) = output_within(quick, std::time::Duration::from_secs(10))
+            .unwrap()
+            .unwrap();
+        assert!(status.success());
+        assert_eq!(out, b"done\n");
     }
 
     /// A page tree without /MediaBox makes pdf-extract panic (`expect("MediaBox")`): the panic
