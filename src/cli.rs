@@ -337,61 +337,7 @@ pub fn run() -> Result<ExitCode> {
             json,
         } => cmd_demo(source, &workdir, json),
         Command::Eval(EvalCommand::Abstention { squad, cap, json }) => {
-            use onrecord::eval::squad::{at_threshold, best_threshold, score_range};
-            let tune_dir = tempfile::tempdir()?;
-            let report_dir = tempfile::tempdir()?;
-            let tune = score_range(&squad, 1..=24, cap, tune_dir.path())?;
-            let report = score_range(&squad, 25..=48, cap, report_dir.path())?;
-            let best = best_threshold(&tune);
-            let default = ExtractiveConfig::default().min_score;
-            let sweep: Vec<_> = (0..=20)
-                .map(|i| at_threshold(&tune, i as f32 * 0.05))
-                .collect();
-            let at_default = at_threshold(&report, default);
-            let mut out = std::io::stdout().lock();
-            if json {
-                writeln!(
-                    out,
-                    "{}",
-                    serde_json::to_string_pretty(&serde_json::json!({
-                        "tuned_on": "articles 1-24",
-                        "tuned": best,
-                        "default_threshold": default,
-                        "reported_on": "articles 25-48",
-                        "report_at_default": at_default,
-                        "report_at_tuned": at_threshold(&report, best.threshold),
-                        "sweep_tuning_split": sweep,
-                        "questions": {"tuning": tune.len(), "report": report.len()},
-                    }))?
-                )?;
-            } else {
-                writeln!(
-                    out,
-                    "threshold  answered  with-gold  abstained  J   (articles 1-24, {} questions)",
-                    tune.len()
-                )?;
-                for r in &sweep {
-                    writeln!(
-                        out,
-                        "  {:.2}      {:.3}     {:.3}      {:.3}     {:.3}",
-                        r.threshold, r.answered, r.answered_with_gold, r.abstained, r.youden_j
-                    )?;
-                }
-                writeln!(
-                    out,
-                    "tuned threshold {:.2} (default {:.2})",
-                    best.threshold, default
-                )?;
-                writeln!(
-                    out,
-                    "articles 25-48 at {:.2}: answered {:.3} (gold in top sentence {:.3}), abstained {:.3}",
-                    default,
-                    at_default.answered,
-                    at_default.answered_with_gold,
-                    at_default.abstained
-                )?;
-            }
-            Ok(ExitCode::SUCCESS)
+            cmd_eval_abstention(&squad, cap, json)
         }
         Command::Eval(EvalCommand::Retrieval {
             beir,
@@ -400,33 +346,86 @@ pub fn run() -> Result<ExitCode> {
             json,
         }) => {
             let RetrieverArg::Bm25 = retriever;
-            let tmp = tempfile::tempdir().context("creating a temporary index folder")?;
-            let progress = !json && std::io::stderr().is_terminal();
-            let r = onrecord::eval::beir::run(&beir, &split, tmp.path(), progress)?;
-            let mut out = std::io::stdout().lock();
-            if json {
-                writeln!(out, "{}", serde_json::to_string_pretty(&r)?)?;
-            } else {
-                writeln!(
-                    out,
-                    "{} on {} ({} split, {} queries, {} documents, {} chunks)\n  nDCG@10    {:.4}\n  recall@100 {:.4}\n  MRR@10     {:.4}\n  ingest     {:.1} docs/s\n  search     p50 {:.2} ms, p95 {:.2} ms",
-                    r.retriever,
-                    beir.display(),
-                    r.split,
-                    r.queries,
-                    r.documents,
-                    r.chunks,
-                    r.ndcg10,
-                    r.recall100,
-                    r.mrr10,
-                    r.ingest_docs_per_second,
-                    r.search_p50_ms,
-                    r.search_p95_ms
-                )?;
-            }
-            Ok(ExitCode::SUCCESS)
+            cmd_eval_retrieval(&beir, &split, json)
         }
     }
+}
+
+fn cmd_eval_abstention(squad: &std::path::Path, cap: usize, json: bool) -> Result<ExitCode> {
+    use onrecord::eval::squad::{at_threshold, best_threshold, score_range, sweep};
+    let tune_dir = tempfile::tempdir()?;
+    let report_dir = tempfile::tempdir()?;
+    let tune = score_range(squad, 1..=24, cap, tune_dir.path())?;
+    let report = score_range(squad, 25..=48, cap, report_dir.path())?;
+    let best = best_threshold(&tune);
+    let default = ExtractiveConfig::default().min_score;
+    let sweep = sweep(&tune);
+    let at_default = at_threshold(&report, default);
+    if json {
+        print_json(&serde_json::json!({
+            "tuned_on": "articles 1-24",
+            "tuned": best,
+            "default_threshold": default,
+            "reported_on": "articles 25-48",
+            "report_at_default": at_default,
+            "report_at_tuned": at_threshold(&report, best.threshold),
+            "sweep_tuning_split": sweep,
+            "questions": {"tuning": tune.len(), "report": report.len()},
+        }))?;
+    } else {
+        let mut out = std::io::stdout().lock();
+        writeln!(
+            out,
+            "threshold  answered  with-gold  abstained  J   (articles 1-24, {} questions)",
+            tune.len()
+        )?;
+        for r in &sweep {
+            writeln!(
+                out,
+                "  {:.2}      {:.3}     {:.3}      {:.3}     {:.3}",
+                r.threshold, r.answered, r.answered_with_gold, r.abstained, r.youden_j
+            )?;
+        }
+        writeln!(
+            out,
+            "tuned threshold {:.2} (default {:.2})",
+            best.threshold, default
+        )?;
+        writeln!(
+            out,
+            "articles 25-48 at {:.2}: answered {:.3} (gold in top sentence {:.3}), abstained {:.3}",
+            default, at_default.answered, at_default.answered_with_gold, at_default.abstained
+        )?;
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+fn cmd_eval_retrieval(beir: &std::path::Path, split: &str, json: bool) -> Result<ExitCode> {
+    let tmp = tempfile::tempdir().context("creating a temporary index folder")?;
+    let progress = !json && std::io::stderr().is_terminal();
+    let r = onrecord::eval::beir::run(beir, split, tmp.path(), progress)?;
+    if json {
+        print_json(&r)?;
+    } else {
+        let mut out = std::io::stdout().lock();
+        writeln!(
+            out,
+            "{} on {} ({} split, {} queries, {} documents, {} chunks)\n  nDCG@10    {:.4}\n  recall@100 {:.4}\n  MRR@10     {:.4}\n  ingest     {:.1} docs/s\n  search     p50 {:.2} ms, p95 {:.2} ms",
+            r.retriever,
+            beir.display(),
+            r.split,
+            r.queries,
+            r.documents,
+            r.chunks,
+            r.ndcg10,
+            r.recall100,
+            r.mrr10,
+            r.ingest_docs_per_second,
+            r.search_p50_ms,
+            r.search_p95_ms
+        )?;
+    }
+    Ok(ExitCode::SUCCESS)
 }
 
 fn ask_one(
@@ -448,10 +447,17 @@ fn ask_one(
     )?)
 }
 
+/// Print a value as pretty JSON on standard output.
+fn print_json(v: &impl serde::Serialize) -> Result<()> {
+    let mut out = std::io::stdout().lock();
+    writeln!(out, "{}", serde_json::to_string_pretty(v)?)?;
+    Ok(())
+}
+
 fn print_answer(a: &AnswerRecord, json: bool) -> Result<()> {
     let mut out = std::io::stdout().lock();
     if json {
-        writeln!(out, "{}", serde_json::to_string_pretty(a)?)?;
+        print_json(a)?;
     } else {
         write!(out, "{}", answer::render_text(a))?;
     }
@@ -467,15 +473,11 @@ fn cmd_ingest(
     let (report, diags) = ingest::ingest_paths(index, paths, cfg)?;
     let mut out = std::io::stdout().lock();
     if json {
-        writeln!(
-            out,
-            "{}",
-            serde_json::to_string_pretty(&serde_json::json!({
-                "index": index,
-                "report": report,
-                "diagnostics": diags,
-            }))?
-        )?;
+        print_json(&serde_json::json!({
+            "index": index,
+            "report": report,
+            "diagnostics": diags,
+        }))?;
     } else {
         let mut err = std::io::stderr().lock();
         for d in &diags {
@@ -535,13 +537,7 @@ fn cmd_search(
                 })
             })
             .collect();
-        writeln!(
-            out,
-            "{}",
-            serde_json::to_string_pretty(
-                &serde_json::json!({"query": query, "filters": filters, "results": rows})
-            )?
-        )?;
+        print_json(&serde_json::json!({"query": query, "filters": filters, "results": rows}))?;
         return Ok(ExitCode::SUCCESS);
     }
     if hits.is_empty() {
@@ -608,7 +604,7 @@ fn cmd_docs(index: &std::path::Path, filters: &Filters, json: bool) -> Result<Ex
         .collect();
     let mut out = std::io::stdout().lock();
     if json {
-        writeln!(out, "{}", serde_json::to_string_pretty(&docs)?)?;
+        print_json(&docs)?;
     } else {
         for d in &docs {
             writeln!(

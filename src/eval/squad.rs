@@ -88,11 +88,18 @@ pub fn at_threshold(scored: &[Scored], t: f32) -> AtThreshold {
     }
 }
 
-/// The threshold (on a 0.05 grid) with the highest Youden's J; ties go to
-/// the higher threshold, which abstains more.
-pub fn best_threshold(scored: &[Scored]) -> AtThreshold {
+/// Figures at every threshold of the 0.05 grid from 0 to 1.
+pub fn sweep(scored: &[Scored]) -> Vec<AtThreshold> {
     (0..=20)
         .map(|i| at_threshold(scored, i as f32 * 0.05))
+        .collect()
+}
+
+/// The threshold (on the 0.05 grid) with the highest Youden's J; ties go to
+/// the higher threshold, which abstains more.
+pub fn best_threshold(scored: &[Scored]) -> AtThreshold {
+    sweep(scored)
+        .into_iter()
         .fold(None::<AtThreshold>, |best, x| match best {
             Some(b) if b.youden_j > x.youden_j + 1e-12 => Some(b),
             _ => Some(x),
