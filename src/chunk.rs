@@ -9,6 +9,7 @@
 
 use crate::segment::{sentence_spans, word_spans};
 use crate::text::byte_to_char;
+use crate::types::ChunkSpan;
 use serde::{Deserialize, Serialize};
 use std::ops::Range;
 
@@ -35,10 +36,7 @@ pub const PAGE_BREAK: char = '\u{c}';
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub struct Chunk {
     pub seq: u32,
-    pub start_page: u32,
-    pub start_char: usize,
-    pub end_page: u32,
-    pub end_char: usize,
+    pub span: ChunkSpan,
     pub text: String,
     pub tokens: usize,
 }
@@ -109,10 +107,12 @@ pub fn chunk_pages(pages: &[String], cfg: ChunkConfig) -> Vec<Chunk> {
         let ep = last.page;
         chunks.push(Chunk {
             seq: chunks.len() as u32,
-            start_page: sp as u32 + 1,
-            start_char: byte_to_char(&pages[sp], first.bytes.start),
-            end_page: ep as u32 + 1,
-            end_char: byte_to_char(&pages[ep], last.bytes.end),
+            span: ChunkSpan {
+                start_page: sp as u32 + 1,
+                start_char: byte_to_char(&pages[sp], first.bytes.start),
+                end_page: ep as u32 + 1,
+                end_char: byte_to_char(&pages[ep], last.bytes.end),
+            },
             text: slice_pages(pages, sp, first.bytes.start, ep, last.bytes.end),
             tokens: total,
         });
@@ -148,17 +148,11 @@ fn slice_pages(pages: &[String], sp: usize, sb: usize, ep: usize, eb: usize) -> 
     s
 }
 
-/// Rebuild a chunk's text from page texts and its span (1-based pages, char
-/// offsets). Returns `None` when the span does not exist in these pages.
-pub fn chunk_text_from_pages(
-    pages: &[String],
-    start_page: u32,
-    start_char: usize,
-    end_page: u32,
-    end_char: usize,
-) -> Option<String> {
-    let sp = (start_page as usize).checked_sub(1)?;
-    let ep = (end_page as usize).checked_sub(1)?;
+/// Rebuild a chunk's text from page texts and its span. Returns `None` when the span does not exist in these pages.
+pub fn chunk_text_from_pages(pages: &[String], span: &ChunkSpan) -> Option<String> {
+    let (start_char, end_char) = (span.start_char, span.end_char);
+    let sp = (span.start_page as usize).checked_sub(1)?;
+    let ep = (span.end_page as usize).checked_sub(1)?;
     if sp > ep || ep >= pages.len() {
         return None;
     }
@@ -199,10 +193,13 @@ mod tests {
                 overlap_tokens: 0,
             },
         );
-        let spanning = cs.iter().find(|c| c.start_page != c.end_page).unwrap();
+        let spanning = cs
+            .iter()
+            .find(|c| c.span.start_page != c.span.end_page)
+            .unwrap();
         assert_eq!(spanning.text, "Epsilon zeta.\u{c}Eta theta iota.");
-        assert_eq!((spanning.start_char, spanning.end_char), (24, 15));
-        assert_eq!((spanning.start_page, spanning.end_page), (1, 2));
+        assert_eq!((spanning.span.start_char, spanning.span.end_char), (24, 15));
+        assert_eq!((spanning.span.start_page, spanning.span.end_page), (1, 2));
     }
 
     #[test]
@@ -256,7 +253,7 @@ mod tests {
             let pages: Vec<String> = raw;
             let cs = chunk_pages(&pages, ChunkConfig { max_tokens: max, overlap_tokens: overlap });
             for c in &cs {
-                let rebuilt = chunk_text_from_pages(&pages, c.start_page, c.start_char, c.end_page, c.end_char);
+                let rebuilt = chunk_text_from_pages(&pages, &c.span);
                 prop_assert_eq!(rebuilt.as_deref(), Some(c.text.as_str()));
             }
             let total_words: usize = pages.iter().map(|p| word_spans(p).len()).sum();
@@ -266,7 +263,8 @@ mod tests {
                     let wc = byte_to_char(p, w.start);
                     let page = pi as u32 + 1;
                     if cs.iter().any(|c| {
-                        (c.start_page, c.start_char) <= (page, wc) && (page, wc) < (c.end_page, c.end_char)
+                        (c.span.start_page, c.span.start_char) <= (page, wc)
+                            && (page, wc) < (c.span.end_page, c.span.end_char)
                     }) {
                         covered += 1;
                     }

@@ -529,8 +529,8 @@ fn cmd_search(
                     "title": h.chunk.title,
                     "organisation": h.chunk.organisation,
                     "date": h.chunk.date,
-                    "page": h.chunk.start_page,
-                    "end_page": h.chunk.end_page,
+                    "page": h.chunk.span.start_page,
+                    "end_page": h.chunk.span.end_page,
                     "snippet": s.text,
                     "highlights": s.highlights,
                     "hash": h.chunk.hash,
@@ -555,10 +555,10 @@ fn cmd_search(
     let tty = std::io::stdout().is_terminal();
     for h in &hits {
         let c = &h.chunk;
-        let pages = if c.start_page == c.end_page {
-            format!("p. {}", c.start_page)
+        let pages = if c.span.start_page == c.span.end_page {
+            format!("p. {}", c.span.start_page)
         } else {
-            format!("pp. {}-{}", c.start_page, c.end_page)
+            format!("pp. {}-{}", c.span.start_page, c.span.end_page)
         };
         let mut head = format!("{}. {}", h.rank, c.title);
         if let Some(o) = &c.organisation {

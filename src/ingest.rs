@@ -256,10 +256,7 @@ fn store_and_index(
             organisation: doc.meta.organisation.clone(),
             date: doc.meta.date.clone(),
             seq: c.seq,
-            start_page: c.start_page,
-            start_char: c.start_char,
-            end_page: c.end_page,
-            end_char: c.end_char,
+            span: c.span,
             text: c.text.clone(),
             hash: hash_hex(c.text.as_bytes()),
         })?;

@@ -9,7 +9,7 @@
 
 use crate::chunk::Chunk;
 use crate::error::{Error, Result};
-use crate::types::{ChunkId, DocId, DocMeta, Filters};
+use crate::types::{ChunkId, ChunkSpan, DocId, DocMeta, Filters};
 use rusqlite::{Connection, OptionalExtension, params};
 use std::path::{Path, PathBuf};
 
@@ -92,10 +92,7 @@ pub struct StoredChunk {
     pub organisation: Option<String>,
     pub date: Option<String>,
     pub seq: u32,
-    pub start_page: u32,
-    pub start_char: usize,
-    pub end_page: u32,
-    pub end_char: usize,
+    pub span: ChunkSpan,
     pub text: String,
     pub hash: String,
 }
@@ -305,10 +302,10 @@ impl Store {
                 ins.execute(params![
                     rowid,
                     c.seq,
-                    c.start_page,
-                    c.start_char as i64,
-                    c.end_page,
-                    c.end_char as i64,
+                    c.span.start_page,
+                    c.span.start_char as i64,
+                    c.span.end_page,
+                    c.span.end_char as i64,
                     c.text,
                     crate::text::hash_hex(c.text.as_bytes())
                 ])
@@ -491,10 +488,12 @@ fn row_to_chunk(r: &rusqlite::Row<'_>) -> rusqlite::Result<StoredChunk> {
         organisation: r.get(3)?,
         date: r.get(4)?,
         seq: r.get(5)?,
-        start_page: r.get(6)?,
-        start_char: r.get::<_, i64>(7)? as usize,
-        end_page: r.get(8)?,
-        end_char: r.get::<_, i64>(9)? as usize,
+        span: ChunkSpan {
+            start_page: r.get(6)?,
+            start_char: r.get::<_, i64>(7)? as usize,
+            end_page: r.get(8)?,
+            end_char: r.get::<_, i64>(9)? as usize,
+        },
         text: r.get(10)?,
         hash: r.get(11)?,
     })

@@ -29,6 +29,28 @@ impl fmt::Display for ChunkId {
     }
 }
 
+/// Where a chunk lies in its document: from (`start_page`, `start_char`)
+/// to (`end_page`, `end_char`). Pages count from 1; character offsets count
+/// Unicode scalar values in each page's stored text, end exclusive.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize)]
+pub struct ChunkSpan {
+    pub start_page: u32,
+    pub start_char: usize,
+    pub end_page: u32,
+    pub end_char: usize,
+}
+
+impl ChunkSpan {
+    /// "p. 3" or "pp. 3-4".
+    pub fn pages_label(&self) -> String {
+        if self.start_page == self.end_page {
+            format!("p. {}", self.start_page)
+        } else {
+            format!("pp. {}-{}", self.start_page, self.end_page)
+        }
+    }
+}
+
 /// Descriptive metadata of a document, from the manifest, flags or the file.
 #[derive(Debug, Clone, Default, PartialEq, Eq, Serialize, Deserialize)]
 pub struct DocMeta {

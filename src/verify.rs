@@ -122,14 +122,14 @@ fn page_offset(chunk: &StoredChunk, byte: usize) -> (u32, usize) {
     let before = &chunk.text[..byte];
     match before.rfind(PAGE_BREAK) {
         None => (
-            chunk.start_page,
-            chunk.start_char + byte_to_char(&chunk.text, byte),
+            chunk.span.start_page,
+            chunk.span.start_char + byte_to_char(&chunk.text, byte),
         ),
         Some(ff) => {
             let breaks = before.matches(PAGE_BREAK).count() as u32;
             let line_start = ff + PAGE_BREAK.len_utf8();
             (
-                chunk.start_page + breaks,
+                chunk.span.start_page + breaks,
                 chunk.text[line_start..byte].chars().count(),
             )
         }
@@ -158,14 +158,6 @@ fn struck(s: &DraftSentence, reason: String, citations: Vec<Citation>) -> Verifi
         reason: Some(reason),
         confidence: 0.0,
         citations,
-    }
-}
-
-fn pages_label(c: &StoredChunk) -> String {
-    if c.start_page == c.end_page {
-        format!("p. {}", c.start_page)
-    } else {
-        format!("pp. {}-{}", c.start_page, c.end_page)
     }
 }
 
@@ -199,7 +191,7 @@ fn verify_sentence(
                 s,
                 format!(
                     "quote not found on {} of \u{201C}{}\u{201D}",
-                    pages_label(chunk),
+                    chunk.span.pages_label(),
                     chunk.title
                 ),
                 citations,
@@ -613,10 +605,12 @@ mod tests {
             organisation: Some("Ministry of Public Works".into()),
             date: Some("2019-03-14".into()),
             seq: 0,
-            start_page: 3,
-            start_char: 10,
-            end_page: 4,
-            end_char: 20,
+            span: crate::types::ChunkSpan {
+                start_page: 3,
+                start_char: 10,
+                end_page: 4,
+                end_char: 20,
+            },
             text: text.into(),
             hash: String::new(),
         }

@@ -337,11 +337,10 @@ fn every_stored_chunk_is_exactly_its_page_slice() {
     store
         .for_each_chunk(|c| {
             let pages = store.pages(&c.doc_id).unwrap();
-            let rebuilt =
-                chunk_text_from_pages(&pages, c.start_page, c.start_char, c.end_page, c.end_char);
+            let rebuilt = chunk_text_from_pages(&pages, &c.span);
             assert_eq!(rebuilt.as_deref(), Some(c.text.as_str()), "chunk {}", c.id);
             checked += 1;
-            spanning += usize::from(c.start_page != c.end_page);
+            spanning += usize::from(c.span.start_page != c.span.end_page);
             Ok(())
         })
         .unwrap();
