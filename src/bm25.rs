@@ -119,12 +119,29 @@ impl Bm25Index {
         Ok(metas.payload.and_then(|p| p.parse().ok()))
     }
 
+    /// Take the index's writer lock. The lock is a file lock, and a child
+    /// process started by another thread (pdftotext) can hold a copy of a
+    /// just-released lock for a moment until it executes, so a busy lock is
+    /// retried for up to five seconds before giving up.
     pub fn writer(&self) -> Result<Bm25Writer<'_>> {
-        let writer = self
-            .index
-            .writer_with_num_threads(1, 64_000_000)
-            .map_err(|e| self.err(e))?;
-        Ok(Bm25Writer { idx: self, writer })
+        let deadline = std::time::Instant::now() + std::time::Duration::from_secs(5);
+        loop {
+            match self.index.writer_with_num_threads(1, 64_000_000) {
+                Ok(writer) => return Ok(Bm25Writer { idx: self, writer }),
+                Err(tantivy::TantivyError::LockFailure(
+                    tantivy::directory::error::LockError::LockBusy,
+                    _,
+                )) if std::time::Instant::now() < deadline => {
+                    std::thread::sleep(std::time::Duration::from_millis(20));
+                }
+                Err(tantivy::TantivyError::LockFailure(..)) => {
+                    return Err(self.err(
+                        "another onrecord process is writing to this index; wait for it to finish",
+                    ));
+                }
+                Err(e) => return Err(self.err(e)),
+            }
+        }
     }
 
     /// Drop every entry and index every chunk in the store again.
