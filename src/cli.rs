@@ -483,9 +483,19 @@ fn cmd_ingest(
         for d in &diags {
             writeln!(err, "{d}")?;
         }
+        let skipped: Vec<String> = report
+            .skipped_types
+            .iter()
+            .map(|(ext, n)| format!("{ext} {n}"))
+            .collect();
+        let skipped = if skipped.is_empty() {
+            String::new()
+        } else {
+            format!(" (unsupported types: {})", skipped.join(", "))
+        };
         writeln!(
             out,
-            "{} ingested ({} replaced), {} unchanged, {} skipped, {} failed; {} pages, {} chunks in {:.1}s -> {}",
+            "{} ingested ({} replaced), {} unchanged, {} skipped{skipped}, {} failed; {} pages, {} chunks in {:.1}s -> {}",
             report.ingested,
             report.replaced,
             report.unchanged,

@@ -40,6 +40,8 @@ pub struct Report {
     pub unchanged: usize,
     /// Files passed over (not a supported type).
     pub skipped: usize,
+    /// Skipped files by extension (`(none)` for files without one).
+    pub skipped_types: std::collections::BTreeMap<String, usize>,
     pub failed: usize,
     pub pages: usize,
     pub chunks: usize,
@@ -291,6 +293,11 @@ impl Run<'_> {
     fn one_file(&mut self, path: &Path, writer: &mut crate::bm25::Bm25Writer<'_>) -> Result<bool> {
         let Some(kind) = Kind::of(path) else {
             self.report.skipped += 1;
+            let ext = path
+                .extension()
+                .map(|e| format!(".{}", e.to_string_lossy().to_lowercase()))
+                .unwrap_or_else(|| "(none)".into());
+            *self.report.skipped_types.entry(ext).or_default() += 1;
             return Ok(false);
         };
         let canonical = match path.canonicalize() {

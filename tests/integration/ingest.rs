@@ -226,6 +226,7 @@ fn filters_restrict_search_by_date_organisation_and_document() {
     let (r, diags) = ingest_with(idx.path(), &[src.path().to_path_buf()], &cfg);
     assert_eq!(r.ingested, 4, "{diags:?}");
     assert_eq!(r.skipped, 1, "the manifest itself is not a record");
+    assert_eq!(r.skipped_types.get(".csv"), Some(&1));
     let index = Index::open(idx.path()).unwrap();
     let docs = |f: Filters| {
         let mut v: Vec<String> = index
