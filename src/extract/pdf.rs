@@ -887,7 +887,7 @@ mod tests {
     /// A child that outlives its limit is killed and reported as a time-out;
     /// one that finishes returns its output.
     #[test]
-    fn slow_helpers_are_stopped() {
+    fn slow_child_processes_are_stopped() {
         let mut slow = Command::new("sleep");
         slow.arg("5");
         let t = std::time::Instant::now();
