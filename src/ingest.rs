@@ -12,7 +12,7 @@ use crate::chunk::{ChunkConfig, chunk_pages};
 use crate::error::{Error, Result};
 use crate::extract::{self, ExtractOptions, Kind};
 use crate::manifest::Manifest;
-use crate::store::{NewDocument, Store, StoredChunk};
+use crate::store::{NewDocument, Store};
 use crate::text::hash_hex;
 use crate::types::{DocId, DocMeta};
 use serde::Serialize;
@@ -245,23 +245,8 @@ fn store_and_index(
 ) -> Result<(usize, usize)> {
     let stored = store.put_document(doc)?;
     writer.delete_doc(&doc.doc_id);
-    let title = doc
-        .meta
-        .title
-        .clone()
-        .unwrap_or_else(|| doc.doc_id.0.clone());
-    for (id, c) in &stored {
-        writer.add(&StoredChunk {
-            id: *id,
-            doc_id: doc.doc_id.clone(),
-            title: title.clone(),
-            organisation: doc.meta.organisation.clone(),
-            date: doc.meta.date.clone(),
-            seq: c.seq,
-            span: c.span,
-            text: c.text.clone(),
-            hash: hash_hex(c.text.as_bytes()),
-        })?;
+    for c in &stored {
+        writer.add(c)?;
     }
     Ok((doc.pages.len(), stored.len()))
 }

@@ -236,8 +236,8 @@ impl Store {
     }
 
     /// Insert a document, or replace the one with the same source, in one
-    /// transaction. Returns the new chunks with their ids.
-    pub fn put_document(&mut self, doc: &NewDocument) -> Result<Vec<(ChunkId, Chunk)>> {
+    /// transaction. Returns the new chunks as stored, with their ids.
+    pub fn put_document(&mut self, doc: &NewDocument) -> Result<Vec<StoredChunk>> {
         let path = self.path.clone();
         let e = |e: rusqlite::Error| Error::store(&path, e);
         let tx = self.conn.transaction().map_err(e)?;
@@ -299,6 +299,7 @@ impl Store {
                 )
                 .map_err(e)?;
             for c in &doc.chunks {
+                let hash = crate::text::hash_hex(c.text.as_bytes());
                 ins.execute(params![
                     rowid,
                     c.seq,
@@ -307,10 +308,20 @@ impl Store {
                     c.span.end_page,
                     c.span.end_char as i64,
                     c.text,
-                    crate::text::hash_hex(c.text.as_bytes())
+                    hash
                 ])
                 .map_err(e)?;
-                out.push((ChunkId(tx.last_insert_rowid() as u64), c.clone()));
+                out.push(StoredChunk {
+                    id: ChunkId(tx.last_insert_rowid() as u64),
+                    doc_id: doc.doc_id.clone(),
+                    title: title.clone(),
+                    organisation: doc.meta.organisation.clone(),
+                    date: doc.meta.date.clone(),
+                    seq: c.seq,
+                    span: c.span,
+                    text: c.text.clone(),
+                    hash,
+                });
             }
         }
         tx.execute(
