@@ -47,18 +47,23 @@ impl Index {
         let allowed = self.store.docs_matching(filters)?;
         let hits = self.bm25.search(query, allowed.as_deref(), k)?;
         let ids: Vec<_> = hits.iter().map(|h| h.chunk_id).collect();
-        let chunks = self.store.chunks(&ids)?;
+        // Pair by id: a hit whose chunk is no longer in the store is dropped
+        // rather than lending its rank and score to a neighbour.
+        let mut chunks: std::collections::HashMap<_, _> = self
+            .store
+            .chunks(&ids)?
+            .into_iter()
+            .map(|c| (c.id, c))
+            .collect();
         Ok(hits
             .iter()
-            .zip(chunks)
-            .map(|(h, c)| {
-                debug_assert_eq!(h.chunk_id, c.id);
-                Retrieved {
+            .filter_map(|h| {
+                chunks.remove(&h.chunk_id).map(|c| Retrieved {
                     chunk: c,
                     retriever: "bm25",
                     rank: h.rank,
                     score: h.score,
-                }
+                })
             })
             .collect())
     }
