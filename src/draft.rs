@@ -410,7 +410,7 @@ impl Drafter for Extractive {
                 }
             } else {
                 format!(
-                    "the retrieved records do not answer this question (best sentence scored {best:.2}, below the {:.2} threshold)",
+                    "no sentence in the retrieved records answers it closely enough (closest match {best:.2}; an answer needs {:.2})",
                     self.cfg.min_score
                 )
             };

@@ -83,8 +83,8 @@ impl Default for ExtractOptions {
 }
 
 /// Extract a file whose bytes are already read.
-/// `bytes` are the file's contents, already read for hashing; the PDF
-/// readers read `path` themselves.
+/// `bytes` are the file's contents, already read for hashing (pdftotext
+/// still reads `path` itself).
 pub fn extract(
     path: &Path,
     kind: Kind,
@@ -93,11 +93,10 @@ pub fn extract(
 ) -> Result<Extracted, ExtractError> {
     let mut out = match kind {
         Kind::Pdf => {
-            // The PDF readers work from the path (pdftotext needs one). PDF
-            // titles in released records are often tool debris ("Word -
+            // PDF titles in released records are often tool debris ("Word -
             // memo.docx"), so the title comes from the manifest or the file
             // name instead.
-            let (pages, notes) = pdf_with_fallback(path, opts.pdf_route)?;
+            let (pages, notes) = pdf_with_fallback(path, bytes, opts.pdf_route)?;
             Extracted {
                 pages,
                 notes,
@@ -123,10 +122,11 @@ pub fn extract(
 /// parser could open, try the other reader (when installed) and say so.
 fn pdf_with_fallback(
     path: &Path,
+    bytes: &[u8],
     route: pdf::PdfRoute,
 ) -> Result<(Vec<String>, Vec<String>), pdf::PdfError> {
-    use pdf::{PdfError, PdfRoute, extract_pages};
-    match extract_pages(path, route) {
+    use pdf::{PdfError, PdfRoute, extract_pages_read as extract_pages};
+    match extract_pages(path, bytes, route) {
         Err(PdfError::Corrupt(first)) => {
             let other = match route {
                 PdfRoute::Pdftotext => PdfRoute::PureRust,
@@ -135,7 +135,7 @@ fn pdf_with_fallback(
                 }
                 PdfRoute::PureRust => return Err(PdfError::Corrupt(first)),
             };
-            match extract_pages(path, other) {
+            match extract_pages(path, bytes, other) {
                 Ok(pages) => Ok((
                     pages,
                     vec![format!(
@@ -213,7 +213,8 @@ mod tests {
         let opts = ExtractOptions {
             pdf_route: pdf::PdfRoute::PureRust,
         };
-        let x = extract(&path, Kind::Pdf, &[], &opts).unwrap();
+        let bytes = std::fs::read(&path).unwrap();
+        let x = extract(&path, Kind::Pdf, &bytes, &opts).unwrap();
         assert!(x.pages[0].contains("The ramp was closed on 18 March 2022."));
         assert!(x.notes[0].contains("other PDF reader"), "{:?}", x.notes);
     }

@@ -415,8 +415,17 @@ pub fn default_route() -> PdfRoute {
 /// lines, `-layout` may add leading spaces), and a page holding only whitespace becomes `""`.
 /// If every page is empty the result is [`PdfError::NoText`].
 pub fn extract_pages(path: &Path, route: PdfRoute) -> Result<Vec<String>, PdfError> {
-    let bytes = std::fs::read(path)?;
-    let doc = load_checked(&bytes)?;
+    extract_pages_read(path, &std::fs::read(path)?, route)
+}
+
+/// [`extract_pages`] for a file whose contents `bytes` are already read
+/// (pdftotext still reads `path` itself).
+pub fn extract_pages_read(
+    path: &Path,
+    bytes: &[u8],
+    route: PdfRoute,
+) -> Result<Vec<String>, PdfError> {
+    let doc = load_checked(bytes)?;
     let page_count = doc.get_pages().len();
     if page_count == 0 {
         return Err(PdfError::NoPages);
