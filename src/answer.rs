@@ -13,7 +13,7 @@
 
 use crate::draft::{DraftRequest, Drafter};
 use crate::error::Result;
-use crate::retrieve::{Index, Retrieved};
+use crate::retrieve::{Index, Retrieved, RetrieverKind, SearchOptions};
 use crate::types::{ChunkId, DocId, Filters};
 use crate::verify::{Judge, Verdict, VerifiedSentence, verify};
 use serde::{Deserialize, Serialize};
@@ -28,6 +28,9 @@ pub const CAUTION: &str = "onrecord checks that each sentence is supported by th
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct AskConfig {
     pub retriever: String,
+    /// The embedding model behind dense or hybrid retrieval.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub embedder: Option<String>,
     pub k: usize,
     pub drafter: String,
     pub judge: String,
@@ -85,6 +88,10 @@ impl AnswerRecord {
 /// record (or a pile of copies of one e-mail) cannot crowd out the others.
 pub const MAX_CHUNKS_PER_DOC: usize = 3;
 
+/// With hybrid retrieval, BM25's top this-many chunks always reach the
+/// drafter, even when fusion ranks them lower.
+pub const LEXICAL_FLOOR: usize = 8;
+
 /// Keep rank order, at most `per_doc` chunks per document, `k` in all;
 /// ranks are renumbered from 1.
 pub fn diversify(hits: Vec<Retrieved>, k: usize, per_doc: usize) -> Vec<Retrieved> {
@@ -115,11 +122,28 @@ pub fn ask(
     drafter_settings: serde_json::Value,
     judge: &dyn Judge,
 ) -> Result<AnswerRecord> {
-    let retrieved = diversify(
+    let mut retrieved = diversify(
         index.search(question, filters, k * 3)?,
         k,
         MAX_CHUNKS_PER_DOC,
     );
+    if index.retriever() == RetrieverKind::Hybrid {
+        // Fusion reorders; it must not hide what lexical search ranks at the
+        // top. BM25's own top chunks that the fused list left out follow it,
+        // marked as BM25's, so hybrid widens what the drafter may read.
+        let opts = SearchOptions {
+            retriever: Some(RetrieverKind::Bm25),
+            ..index.options
+        };
+        let have: std::collections::HashSet<ChunkId> =
+            retrieved.iter().map(|r| r.chunk.id).collect();
+        for mut r in index.search_with(question, filters, LEXICAL_FLOOR, &opts)? {
+            if !have.contains(&r.chunk.id) {
+                r.rank = retrieved.len() + 1;
+                retrieved.push(r);
+            }
+        }
+    }
     let query_terms = index.query_terms(question)?;
     let draft = drafter.draft(&DraftRequest {
         question,
@@ -145,7 +169,10 @@ pub fn ask(
         created_at: now_utc(),
         question: question.into(),
         config: AskConfig {
-            retriever: "bm25".into(),
+            retriever: index.retriever().name().into(),
+            embedder: (index.retriever() != crate::retrieve::RetrieverKind::Bm25)
+                .then(|| index.embedder.as_ref().map(|e| e.id().to_owned()))
+                .flatten(),
             k,
             drafter: drafter.name(),
             judge: judge.name().into(),

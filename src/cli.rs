@@ -6,11 +6,13 @@ use anyhow::{Context, Result, bail};
 use clap::{Args, Parser, Subcommand, ValueEnum};
 use onrecord::answer::{self, AnswerRecord, CAUTION};
 use onrecord::draft::{Extractive, ExtractiveConfig};
+use onrecord::embed::{self, Embedder, EmbedderChoice};
 use onrecord::extract::ExtractOptions;
 use onrecord::extract::pdf::{PdfRoute, default_route};
+use onrecord::fuse::Weights;
 use onrecord::ingest::{self, IngestConfig, Severity};
 use onrecord::manifest::Manifest;
-use onrecord::retrieve::{self, Index};
+use onrecord::retrieve::{self, Index, RetrieverKind, SearchOptions};
 use onrecord::types::{DocId, DocMeta, Filters, check_date};
 use onrecord::verify::RulesJudge;
 use std::io::{IsTerminal, Write};
@@ -36,6 +38,81 @@ struct Cli {
     /// Log what each stage does (repeat for more detail).
     #[arg(short, long, action = clap::ArgAction::Count, global = true)]
     verbose: u8,
+    /// Embedding model: `auto` (the default model if it is on this machine),
+    /// `off` (BM25 only), a model folder, or a repository id already pulled.
+    #[arg(
+        long,
+        global = true,
+        env = "ONRECORD_EMBEDDER",
+        default_value = "auto",
+        value_name = "auto|off|DIR"
+    )]
+    embedder: EmbedderChoice,
+}
+
+#[derive(ValueEnum, Debug, Clone, Copy, PartialEq, Eq)]
+enum RetrieverArg {
+    /// Keyword ranking (BM25): best for names, file numbers and exact phrases.
+    Bm25,
+    /// Embedding similarity: finds paraphrases and other wordings.
+    Dense,
+    /// Both, fused by reciprocal rank (the default when a model is present).
+    Hybrid,
+}
+
+impl RetrieverArg {
+    fn kind(self) -> RetrieverKind {
+        match self {
+            RetrieverArg::Bm25 => RetrieverKind::Bm25,
+            RetrieverArg::Dense => RetrieverKind::Dense,
+            RetrieverArg::Hybrid => RetrieverKind::Hybrid,
+        }
+    }
+}
+
+#[derive(Args, Debug, Clone)]
+struct RetrievalArgs {
+    /// Retriever; without an embedding model every choice falls back to bm25.
+    /// [default: hybrid when a model is present, else bm25]
+    #[arg(long, value_enum)]
+    retriever: Option<RetrieverArg>,
+    /// Weight of the BM25 ranking in the fused score.
+    #[arg(long, default_value_t = 1.0, value_name = "W")]
+    bm25_weight: f64,
+    /// Weight of the embedding ranking in the fused score.
+    #[arg(long, default_value_t = 1.0, value_name = "W")]
+    dense_weight: f64,
+    /// The k of reciprocal rank fusion: score = sum of weight / (k + rank).
+    #[arg(long, default_value_t = onrecord::fuse::RRF_K, value_name = "K")]
+    rrf_k: f64,
+    /// Candidates taken from each retriever before fusing.
+    #[arg(long, default_value_t = 100, value_name = "N")]
+    depth: usize,
+}
+
+impl RetrievalArgs {
+    fn resolve(&self) -> Result<SearchOptions> {
+        for (name, w) in [
+            ("--bm25-weight", self.bm25_weight),
+            ("--dense-weight", self.dense_weight),
+        ] {
+            if !(w.is_finite() && w >= 0.0) {
+                bail!("{name} must be a number of 0 or more (got {w})");
+            }
+        }
+        if !(self.rrf_k.is_finite() && self.rrf_k >= 0.0) {
+            bail!("--rrf-k must be a number of 0 or more (got {})", self.rrf_k);
+        }
+        Ok(SearchOptions {
+            retriever: self.retriever.map(RetrieverArg::kind),
+            weights: Weights {
+                bm25: self.bm25_weight,
+                dense: self.dense_weight,
+            },
+            rrf_k: self.rrf_k,
+            depth: self.depth.max(1),
+        })
+    }
 }
 
 #[derive(Args, Debug, Clone)]
@@ -138,7 +215,12 @@ enum Command {
         #[arg(short, long)]
         quiet: bool,
     },
-    /// Find passages with BM25, with page numbers and highlighted snippets.
+    /// Find passages, with page numbers and highlighted snippets.
+    ///
+    /// BM25 finds the words you typed; the embedding model finds other
+    /// wordings of the same thing; hybrid (the default when the model is
+    /// present) fuses both rankings. --explain shows each retriever's rank
+    /// and score beside the fused score.
     Search {
         /// What to look for.
         query: String,
@@ -146,9 +228,14 @@ enum Command {
         index: IndexArg,
         #[command(flatten)]
         filters: FilterArgs,
+        #[command(flatten)]
+        retrieval: RetrievalArgs,
         /// How many passages.
         #[arg(short, long, default_value_t = 10)]
         k: usize,
+        /// Show why each passage was returned: each retriever's rank and score.
+        #[arg(long)]
+        explain: bool,
         #[arg(long)]
         json: bool,
     },
@@ -159,6 +246,8 @@ enum Command {
         index: IndexArg,
         #[command(flatten)]
         filters: FilterArgs,
+        #[command(flatten)]
+        retrieval: RetrievalArgs,
         /// How many passages to retrieve.
         #[arg(short, long, default_value_t = 10)]
         k: usize,
@@ -197,11 +286,65 @@ enum Command {
     /// Measure quality on open data.
     #[command(subcommand)]
     Eval(EvalCommand),
+    /// Rebuild the search indexes from the store: BM25, and the vector
+    /// index (embedding any chunk that has no vector yet).
+    Reindex {
+        #[command(flatten)]
+        index: IndexArg,
+        #[arg(long)]
+        json: bool,
+        /// No progress bar.
+        #[arg(short, long)]
+        quiet: bool,
+    },
+    /// Embedding models: where onrecord looks, and fetching one.
+    #[command(subcommand)]
+    Models(ModelsCommand),
+    /// Speed measurements that print JSON, to set beside other tools.
+    #[command(subcommand)]
+    Bench(BenchCommand),
 }
 
-#[derive(ValueEnum, Debug, Clone, Copy, PartialEq, Eq)]
-enum RetrieverArg {
-    Bm25,
+#[derive(Subcommand, Debug)]
+enum ModelsCommand {
+    /// Download a model from the model hub into its standard cache
+    /// (HF_HOME, else ~/.cache/huggingface). Afterwards pass the same id,
+    /// or the folder printed, to --embedder.
+    Pull {
+        /// Repository id, such as sentence-transformers/all-MiniLM-L6-v2.
+        repo_id: String,
+        #[arg(long)]
+        json: bool,
+    },
+    /// Where the default model is looked for, and which embedder would load.
+    List {
+        #[arg(long)]
+        json: bool,
+    },
+}
+
+#[derive(Subcommand, Debug)]
+enum BenchCommand {
+    /// Embedding throughput on the first N documents of a BEIR corpus
+    /// (title + text, truncated as the model requires). Prints JSON.
+    Embed {
+        /// A BEIR corpus.jsonl (`_id`, `title`, `text`).
+        #[arg(long, value_name = "FILE")]
+        beir_corpus: PathBuf,
+        /// How many documents.
+        #[arg(long, default_value_t = 1000, value_name = "N")]
+        limit: usize,
+    },
+}
+
+#[derive(Args, Debug, Clone)]
+struct FusionArgs {
+    /// Weight of the BM25 ranking in the fused score.
+    #[arg(long, default_value_t = 1.0, value_name = "W")]
+    bm25_weight: f64,
+    /// Weight of the embedding ranking in the fused score.
+    #[arg(long, default_value_t = 1.0, value_name = "W")]
+    dense_weight: f64,
 }
 
 #[derive(Subcommand, Debug)]
@@ -213,8 +356,18 @@ enum EvalCommand {
         beir: PathBuf,
         #[arg(long, default_value = "test")]
         split: String,
-        #[arg(long, value_enum, default_value_t = RetrieverArg::Bm25)]
-        retriever: RetrieverArg,
+        /// Retrievers to score (repeat); default: all that can run here.
+        #[arg(long, value_enum)]
+        retriever: Vec<RetrieverArg>,
+        #[command(flatten)]
+        fusion: FusionArgs,
+        /// Most word tokens in a chunk (a BEIR document longer than this
+        /// becomes several chunks; it scores as its best chunk).
+        #[arg(long, default_value_t = 160, value_name = "N")]
+        chunk_tokens: usize,
+        /// Word tokens repeated between neighbouring chunks.
+        #[arg(long, default_value_t = 32, value_name = "N")]
+        chunk_overlap: usize,
         #[arg(long)]
         json: bool,
     },
@@ -250,6 +403,7 @@ pub fn run() -> Result<ExitCode> {
         )
         .with_writer(std::io::stderr)
         .try_init();
+    let choice = cli.embedder.clone();
     match cli.command {
         Command::Ingest {
             paths,
@@ -298,25 +452,34 @@ pub fn run() -> Result<ExitCode> {
                 },
                 progress: !quiet && !json && std::io::stderr().is_terminal(),
             };
-            cmd_ingest(&index.index, &paths, &cfg, json)
+            let progress = cfg.progress;
+            cmd_ingest(&index.index, &paths, &cfg, &choice, progress, json)
         }
         Command::Search {
             query,
             index,
             filters,
+            retrieval,
             k,
+            explain,
             json,
-        } => cmd_search(&index.index, &query, &filters.resolve(), k, json),
+        } => {
+            let opts = retrieval.resolve()?;
+            let idx = open_index(&index.index, &choice, &opts)?;
+            cmd_search(&idx, &query, &filters.resolve(), k, explain, json)
+        }
         Command::Ask {
             question,
             index,
             filters,
+            retrieval,
             k,
             max_sentences,
             min_score,
             json,
         } => {
-            let idx = Index::open(&index.index)?;
+            let opts = retrieval.resolve()?;
+            let idx = open_index(&index.index, &choice, &opts)?;
             let cfg = ExtractiveConfig {
                 max_sentences,
                 min_score,
@@ -335,7 +498,44 @@ pub fn run() -> Result<ExitCode> {
             source,
             workdir,
             json,
-        } => cmd_demo(source, &workdir, json),
+        } => cmd_demo(source, &workdir, &choice, json),
+        Command::Reindex { index, json, quiet } => cmd_reindex(
+            &index.index,
+            &choice,
+            !quiet && !json && std::io::stderr().is_terminal(),
+            json,
+        ),
+        Command::Models(ModelsCommand::Pull { repo_id, json }) => {
+            let dir = embed::hub::pull(&repo_id, !json && std::io::stderr().is_terminal())?;
+            let e = embed::bert::BertEmbedder::load(&dir)?;
+            if json {
+                print_json(
+                    &serde_json::json!({"repo_id": repo_id, "dir": dir, "embedder": e.id(), "dim": e.dim()}),
+                )?;
+            } else {
+                println!(
+                    "{repo_id}: in {} (embedder {}, {} dimensions)\nUse it with: --embedder {repo_id}",
+                    dir.display(),
+                    e.id(),
+                    e.dim()
+                );
+            }
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Models(ModelsCommand::List { json }) => cmd_models_list(&choice, json),
+        Command::Bench(BenchCommand::Embed { beir_corpus, limit }) => {
+            let r = embed::resolve(&choice)?;
+            let Some(e) = r.embedder else {
+                bail!(
+                    "{}",
+                    r.note
+                        .unwrap_or_else(|| "no embedding model (--embedder off)".into())
+                );
+            };
+            let report = onrecord::eval::beir::bench_embed(&beir_corpus, limit, e.as_ref())?;
+            print_json(&report)?;
+            Ok(ExitCode::SUCCESS)
+        }
         Command::Eval(EvalCommand::Abstention { squad, cap, json }) => {
             cmd_eval_abstention(&squad, cap, json)
         }
@@ -343,10 +543,24 @@ pub fn run() -> Result<ExitCode> {
             beir,
             split,
             retriever,
+            fusion,
+            chunk_tokens,
+            chunk_overlap,
             json,
         }) => {
-            let RetrieverArg::Bm25 = retriever;
-            cmd_eval_retrieval(&beir, &split, json)
+            if chunk_tokens == 0 {
+                bail!("--chunk-tokens must be at least 1");
+            }
+            let chunk = onrecord::chunk::ChunkConfig {
+                max_tokens: chunk_tokens,
+                overlap_tokens: chunk_overlap.min(chunk_tokens - 1),
+            };
+            let kinds: Vec<RetrieverKind> = retriever.iter().map(|r| r.kind()).collect();
+            let weights = Weights {
+                bm25: fusion.bm25_weight,
+                dense: fusion.dense_weight,
+            };
+            cmd_eval_retrieval(&beir, &split, &choice, &kinds, weights, chunk, json)
         }
     }
 }
@@ -400,30 +614,186 @@ fn cmd_eval_abstention(squad: &std::path::Path, cap: usize, json: bool) -> Resul
     Ok(ExitCode::SUCCESS)
 }
 
-fn cmd_eval_retrieval(beir: &std::path::Path, split: &str, json: bool) -> Result<ExitCode> {
+fn cmd_eval_retrieval(
+    beir: &std::path::Path,
+    split: &str,
+    choice: &EmbedderChoice,
+    kinds: &[RetrieverKind],
+    weights: Weights,
+    chunk: onrecord::chunk::ChunkConfig,
+    json: bool,
+) -> Result<ExitCode> {
     let tmp = tempfile::tempdir().context("creating a temporary index folder")?;
     let progress = !json && std::io::stderr().is_terminal();
-    let r = onrecord::eval::beir::run(beir, split, tmp.path(), progress)?;
+    let embedder = if kinds.iter().all(|k| *k == RetrieverKind::Bm25) && !kinds.is_empty() {
+        None
+    } else {
+        load_embedder(choice)?
+    };
+    let r = onrecord::eval::beir::run_all(
+        beir,
+        split,
+        tmp.path(),
+        progress,
+        embedder,
+        kinds,
+        weights,
+        chunk,
+    )?;
+    for n in &r.notes {
+        eprintln!("note: {n}");
+    }
     if json {
         print_json(&r)?;
-    } else {
-        let mut out = std::io::stdout().lock();
+        return Ok(ExitCode::SUCCESS);
+    }
+    let mut out = std::io::stdout().lock();
+    if let Some(first) = r.runs.first() {
         writeln!(
             out,
-            "{} on {} ({} split, {} queries, {} documents, {} chunks)\n  nDCG@10    {:.4}\n  recall@100 {:.4}\n  MRR@10     {:.4}\n  ingest     {:.1} docs/s\n  search     p50 {:.2} ms, p95 {:.2} ms",
-            r.retriever,
+            "{} ({} split): {} queries, {} documents, {} chunks; ingest {:.1} docs/s",
             beir.display(),
-            r.split,
-            r.queries,
-            r.documents,
-            r.chunks,
-            r.ndcg10,
-            r.recall100,
-            r.mrr10,
-            r.ingest_docs_per_second,
-            r.search_p50_ms,
-            r.search_p95_ms
+            first.split,
+            first.queries,
+            first.documents,
+            first.chunks,
+            first.ingest_docs_per_second
         )?;
+    }
+    writeln!(
+        out,
+        "  retriever  nDCG@10  recall@100  MRR@10  search p50/p95 ms"
+    )?;
+    for x in &r.runs {
+        writeln!(
+            out,
+            "  {:<9}  {:.4}   {:.4}      {:.4}  {:.2} / {:.2}",
+            x.retriever, x.ndcg10, x.recall100, x.mrr10, x.search_p50_ms, x.search_p95_ms
+        )?;
+    }
+    if let Some(v) = &r.vectors {
+        writeln!(
+            out,
+            "  embedder {}: {} chunks in {:.0}s ({:.1} chunks/s); query embedding {:.1} ms",
+            v.embedder, v.chunks, v.embed_seconds, v.chunks_per_second, v.query_embed_ms
+        )?;
+        for g in &v.graph {
+            writeln!(
+                out,
+                "  HNSW {:?}: recall@10 vs exact {:.4}, {:.1} MiB, p50 {:.2} ms",
+                g.scalar,
+                g.recall10,
+                g.memory_bytes as f64 / 1048576.0,
+                g.search_p50_ms
+            )?;
+        }
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+/// Load the chosen embedder, printing the one-line note when there is none.
+fn load_embedder(choice: &EmbedderChoice) -> Result<Option<std::sync::Arc<dyn Embedder>>> {
+    let r = embed::resolve(choice)?;
+    if let Some(n) = r.note {
+        eprintln!("{n}");
+    }
+    Ok(r.embedder)
+}
+
+/// Open the index with the chosen embedder (none when BM25 is asked for)
+/// and search options, printing any note about falling back.
+fn open_index(
+    dir: &std::path::Path,
+    choice: &EmbedderChoice,
+    opts: &SearchOptions,
+) -> Result<Index> {
+    let embedder = if opts.retriever == Some(RetrieverKind::Bm25) {
+        None
+    } else {
+        load_embedder(choice)?
+    };
+    let mut idx = Index::open_with(dir, embedder)?;
+    idx.options = *opts;
+    for n in &idx.notes {
+        eprintln!("{n}");
+    }
+    Ok(idx)
+}
+
+fn cmd_reindex(
+    index: &std::path::Path,
+    choice: &EmbedderChoice,
+    progress: bool,
+    json: bool,
+) -> Result<ExitCode> {
+    use onrecord::vectors::{DEFAULT_SCALAR, VectorIndex, embed_pending};
+    let started = std::time::Instant::now();
+    let mut store = onrecord::store::Store::open(index)?;
+    let bm25 = onrecord::bm25::Bm25Index::open_or_create(index)?;
+    bm25.rebuild(&store)?;
+    let (docs, _, chunks) = store.counts()?;
+    let mut vectors = serde_json::Value::Null;
+    let mut line = String::new();
+    if let Some(e) = load_embedder(choice)? {
+        let r = embed_pending(&mut store, e.as_ref(), progress)?;
+        let vi = VectorIndex::rebuild(index, &store, e.id(), e.dim(), DEFAULT_SCALAR)?;
+        line = format!(
+            "; vector index rebuilt with {} ({} vectors, {} chunks newly embedded)",
+            e.id(),
+            vi.len(),
+            r.embedded
+        );
+        vectors = serde_json::json!({"embedder": e.id(), "vectors": vi.len(), "embedding": r});
+    }
+    if json {
+        print_json(&serde_json::json!({
+            "index": index, "documents": docs, "chunks": chunks, "vectors": vectors,
+            "seconds": started.elapsed().as_secs_f64(),
+        }))?;
+    } else {
+        println!(
+            "BM25 index rebuilt: {docs} documents, {chunks} chunks{line} in {:.1}s",
+            started.elapsed().as_secs_f64()
+        );
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+fn cmd_models_list(choice: &EmbedderChoice, json: bool) -> Result<ExitCode> {
+    let candidates: Vec<(PathBuf, bool)> = embed::default_model_candidates()
+        .into_iter()
+        .map(|p| {
+            let ok = embed::is_model_dir(&p);
+            (p, ok)
+        })
+        .collect();
+    let r = embed::resolve(choice)?;
+    let active = r.embedder.as_ref().map(|e| (e.id().to_owned(), e.dim()));
+    if json {
+        print_json(&serde_json::json!({
+            "choice": format!("{choice:?}"),
+            "default_model": embed::DEFAULT_MODEL,
+            "looked_in": candidates.iter().map(|(p, ok)| serde_json::json!({"dir": p, "present": ok})).collect::<Vec<_>>(),
+            "embedder": active.as_ref().map(|(id, dim)| serde_json::json!({"id": id, "dim": dim})),
+            "note": r.note,
+        }))?;
+        return Ok(ExitCode::SUCCESS);
+    }
+    println!("Default model {} is looked for in:", embed::DEFAULT_MODEL);
+    for (p, ok) in &candidates {
+        println!(
+            "  {} {}",
+            if *ok { "found  " } else { "missing" },
+            p.display()
+        );
+    }
+    match active {
+        Some((id, dim)) => println!("Embedder in use: {id} ({dim} dimensions)"),
+        None => println!(
+            "{}",
+            r.note
+                .unwrap_or_else(|| "No embedder (--embedder off): BM25 only".into())
+        ),
     }
     Ok(ExitCode::SUCCESS)
 }
@@ -468,14 +838,26 @@ fn cmd_ingest(
     index: &std::path::Path,
     paths: &[PathBuf],
     cfg: &IngestConfig,
+    choice: &EmbedderChoice,
+    progress: bool,
     json: bool,
 ) -> Result<ExitCode> {
+    let embedder = load_embedder(choice)?;
     let (report, diags) = ingest::ingest_paths(index, paths, cfg)?;
+    // Documents are committed; now their chunks are embedded, committing as
+    // it goes, so an interrupted run loses nothing and the next continues.
+    let embedding = match &embedder {
+        Some(e) if index.join(onrecord::store::STORE_FILE).exists() => {
+            Some(onrecord::vectors::update(index, e.as_ref(), progress)?)
+        }
+        _ => None,
+    };
     let mut out = std::io::stdout().lock();
     if json {
         print_json(&serde_json::json!({
             "index": index,
             "report": report,
+            "embedding": embedding.as_ref().map(|(r, s)| serde_json::json!({"report": r, "vector_index": s})),
             "diagnostics": diags,
         }))?;
     } else {
@@ -506,6 +888,13 @@ fn cmd_ingest(
             report.seconds,
             index.display()
         )?;
+        if let Some((r, sync)) = &embedding {
+            writeln!(
+                out,
+                "embedded {} chunks with {} in {:.1}s ({:.1} chunks/s); vector index holds {}",
+                r.embedded, r.model, r.seconds, r.chunks_per_second, sync.total
+            )?;
+        }
     }
     let failed = report.failed > 0 || diags.iter().any(|d| d.severity == Severity::Error);
     Ok(if failed {
@@ -515,15 +904,23 @@ fn cmd_ingest(
     })
 }
 
+fn signal_text(sig: &retrieve::Signal) -> String {
+    match (sig.rank, sig.score) {
+        (Some(r), Some(sc)) => format!("{} #{r} ({sc:.3})", sig.retriever),
+        _ => format!("{} not in its top list", sig.retriever),
+    }
+}
+
 fn cmd_search(
-    index: &std::path::Path,
+    idx: &Index,
     query: &str,
     filters: &Filters,
     k: usize,
+    explain: bool,
     json: bool,
 ) -> Result<ExitCode> {
-    let idx = Index::open(index)?;
     let hits = idx.search(query, filters, k)?;
+    let used = idx.retriever();
     let mut out = std::io::stdout().lock();
     if json {
         let rows: Vec<serde_json::Value> = hits
@@ -534,6 +931,7 @@ fn cmd_search(
                     "rank": h.rank,
                     "score": h.score,
                     "retriever": h.retriever,
+                    "signals": h.signals,
                     "chunk_id": h.chunk.id,
                     "doc_id": h.chunk.doc_id,
                     "title": h.chunk.title,
@@ -547,7 +945,16 @@ fn cmd_search(
                 })
             })
             .collect();
-        print_json(&serde_json::json!({"query": query, "filters": filters, "results": rows}))?;
+        print_json(&serde_json::json!({
+            "query": query,
+            "filters": filters,
+            "retriever": used.name(),
+            "embedder": (used != RetrieverKind::Bm25).then(|| idx.embedder.as_ref().map(|e| e.id().to_owned())).flatten(),
+            "fusion": (used == RetrieverKind::Hybrid).then(|| serde_json::json!({
+                "method": "reciprocal rank fusion", "k": idx.options.rrf_k,
+                "weights": idx.options.weights, "depth": idx.options.depth})),
+            "results": rows,
+        }))?;
         return Ok(ExitCode::SUCCESS);
     }
     if hits.is_empty() {
@@ -577,9 +984,47 @@ fn cmd_search(
         if let Some(d) = &c.date {
             head.push_str(&format!(", {d}"));
         }
-        writeln!(out, "{head}, {pages}  [{} · bm25 {:.2}]", c.doc_id, h.score)?;
+        let score = match used {
+            RetrieverKind::Hybrid => format!("fused {:.4}", h.score),
+            RetrieverKind::Dense => format!("cosine {:.3}", h.score),
+            RetrieverKind::Bm25 => format!("bm25 {:.2}", h.score),
+        };
+        writeln!(out, "{head}, {pages}  [{} · {score}]", c.doc_id)?;
+        if explain {
+            let parts: Vec<String> = h.signals.iter().map(signal_text).collect();
+            let fused = if used == RetrieverKind::Hybrid {
+                let terms: Vec<String> = h
+                    .signals
+                    .iter()
+                    .filter_map(|s| {
+                        let w = if s.retriever == "bm25" {
+                            idx.options.weights.bm25
+                        } else {
+                            idx.options.weights.dense
+                        };
+                        s.rank.map(|r| format!("{w}/({}+{r})", idx.options.rrf_k))
+                    })
+                    .collect();
+                format!(" → fused {} = {:.4}", terms.join(" + "), h.score)
+            } else {
+                String::new()
+            };
+            writeln!(out, "   why: {}{fused}", parts.join(" · "))?;
+        }
         let s = retrieve::snippet(&c.text, query, 240);
         writeln!(out, "   {}\n", mark(&s, tty))?;
+    }
+    if explain {
+        writeln!(
+            out,
+            "Retriever: {}{}",
+            used.name(),
+            match (&idx.embedder, used) {
+                (Some(e), RetrieverKind::Dense | RetrieverKind::Hybrid) =>
+                    format!(" (embedder {})", e.id()),
+                _ => String::new(),
+            }
+        )?;
     }
     Ok(ExitCode::SUCCESS)
 }
@@ -632,7 +1077,12 @@ fn cmd_docs(index: &std::path::Path, filters: &Filters, json: bool) -> Result<Ex
     Ok(ExitCode::SUCCESS)
 }
 
-fn cmd_demo(source: Option<PathBuf>, workdir: &std::path::Path, json: bool) -> Result<ExitCode> {
+fn cmd_demo(
+    source: Option<PathBuf>,
+    workdir: &std::path::Path,
+    choice: &EmbedderChoice,
+    json: bool,
+) -> Result<ExitCode> {
     let source = source.unwrap_or_else(onrecord::demo::default_source_dir);
     let release = workdir.join("release");
     let index = workdir.join("index");
@@ -652,17 +1102,36 @@ fn cmd_demo(source: Option<PathBuf>, workdir: &std::path::Path, json: bool) -> R
     for d in diags.iter().filter(|d| d.severity != Severity::Note) {
         writeln!(err, "{d}")?;
     }
+    drop(err);
+    let embedder = load_embedder(choice)?;
+    if let Some(e) = &embedder {
+        onrecord::vectors::update(&index, e.as_ref(), cfg.progress)?;
+    }
+    let idx = Index::open_with(&index, embedder)?;
+    for n in &idx.notes {
+        eprintln!("{n}");
+    }
+    let mut err = std::io::stderr().lock();
     writeln!(
         err,
-        "Demo index {}: {} ingested, {} unchanged, {} failed; {} pages.\n",
+        "Demo index {}: {} ingested, {} unchanged, {} failed; {} pages.",
         index.display(),
         report.ingested,
         report.unchanged,
         report.failed,
         report.pages
     )?;
+    writeln!(
+        err,
+        "Retrieval: {}\n",
+        match (idx.retriever(), &idx.embedder) {
+            (RetrieverKind::Hybrid, Some(e)) =>
+                format!("hybrid (BM25 + embeddings from {})", e.id()),
+            _ => "BM25 only (no embedding model on this machine; see README, \"Embedding model\")"
+                .into(),
+        }
+    )?;
     drop(err);
-    let idx = Index::open(&index)?;
     let mut out = std::io::stdout().lock();
     for q in onrecord::demo::SAMPLE_QUESTIONS {
         let a = ask_one(

@@ -97,9 +97,28 @@ impl Extractive {
             return Vec::new();
         }
         let wants = AnswerKind::of(req.question);
-        let mut seen: HashSet<(String, String)> = HashSet::new();
-        let mut out = Vec::new();
-        for (ci, r) in req.retrieved.iter().take(self.cfg.top_chunks).enumerate() {
+        // The same sentence in overlapping chunks is one candidate, scored in
+        // whichever chunk gives it the most context, so the result does not
+        // depend on which of the overlapping chunks was retrieved first.
+        let mut seen: HashMap<(String, String), usize> = HashMap::new();
+        let mut out: Vec<Candidate> = Vec::new();
+        // The top chunks of the final order, and any chunk BM25 alone ranks
+        // that high (hybrid retrieval appends those): this drafter scores by
+        // the question's words, so it reads every chunk lexical search puts
+        // at the top.
+        let hybrid = req.retrieved.iter().any(|r| r.retriever == "hybrid");
+        let lexical_top = |r: &Retrieved| {
+            hybrid
+                && r.signals.iter().any(|s| {
+                    s.retriever == "bm25" && s.rank.is_some_and(|x| x <= self.cfg.top_chunks)
+                })
+        };
+        for (ci, r) in req
+            .retrieved
+            .iter()
+            .enumerate()
+            .filter(|(i, r)| *i < self.cfg.top_chunks || lexical_top(r))
+        {
             let text = &r.chunk.text;
             let context: HashSet<String> = crate::text::terms(&format!("{} {text}", r.chunk.title))
                 .into_iter()
@@ -112,9 +131,7 @@ impl Extractive {
                     continue; // headings, header lines, tables, page furniture
                 }
                 let folded = fold_ws(raw);
-                if !seen.insert((r.chunk.doc_id.0.clone(), folded.clone())) {
-                    continue; // the same sentence in an overlapping chunk
-                }
+                let key = (r.chunk.doc_id.0.clone(), folded.clone());
                 let mut matched: HashSet<&str> = HashSet::new();
                 let mut positions = Vec::new();
                 for (i, (t, _)) in spans.iter().enumerate() {
@@ -147,13 +164,21 @@ impl Extractive {
                 };
                 let mut score = coverage * (0.85 + 0.15 * proximity) * length;
                 score += 0.03 / r.rank as f32;
-                out.push(Candidate {
+                let cand = Candidate {
                     chunk_idx: ci,
                     text: folded,
                     raw: raw.to_string(),
                     score,
                     terms: spans.into_iter().map(|(t, _)| t).collect(),
-                });
+                };
+                match seen.get(&key) {
+                    Some(&i) if out[i].score >= score => {}
+                    Some(&i) => out[i] = cand,
+                    None => {
+                        seen.insert(key, out.len());
+                        out.push(cand);
+                    }
+                }
             }
         }
         out.sort_by(|a, b| b.score.total_cmp(&a.score));

@@ -49,6 +49,12 @@ pub enum Error {
         message: String,
     },
 
+    #[error("model {path}: {message}")]
+    Model { path: PathBuf, message: String },
+
+    #[error("vector index {path}: {message}")]
+    Vectors { path: PathBuf, message: String },
+
     #[error("{0}")]
     Invalid(String),
 }

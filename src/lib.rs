@@ -1,7 +1,8 @@
 //! onrecord answers questions from released public records and emits only
 //! sentences that a verbatim quote from a cited page supports.
 //!
-//! Data flow: `ingest` (extract → chunk → store + BM25) → `retrieve` →
+//! Data flow: `ingest` (extract → chunk → store + BM25 → embed + vectors) →
+//! `retrieve` (BM25, dense, fused) →
 //! `draft` → `verify` → `answer` (emit). See DEVELOPERS.md for the code map
 //! and the invariants each module keeps.
 
@@ -10,9 +11,11 @@ pub mod bm25;
 pub mod chunk;
 pub mod demo;
 pub mod draft;
+pub mod embed;
 pub mod error;
 pub mod eval;
 pub mod extract;
+pub mod fuse;
 pub mod ingest;
 pub mod manifest;
 pub mod retrieve;
@@ -20,6 +23,7 @@ pub mod segment;
 pub mod store;
 pub mod text;
 pub mod types;
+pub mod vectors;
 pub mod verify;
 
 pub use error::{Error, Result};
@@ -30,5 +34,15 @@ pub fn shared_data_dir() -> std::path::PathBuf {
     match std::env::var_os("ONRECORD_SHARED_DATA") {
         Some(d) => d.into(),
         None => std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("../shared/data"),
+    }
+}
+
+/// The folder of reference outputs from general-purpose libraries (parity
+/// fixtures): `ONRECORD_SHARED_REFERENCE`, else `reference` beside the
+/// shared data folder.
+pub fn shared_reference_dir() -> std::path::PathBuf {
+    match std::env::var_os("ONRECORD_SHARED_REFERENCE") {
+        Some(d) => d.into(),
+        None => shared_data_dir().join("../reference"),
     }
 }

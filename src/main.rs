@@ -3,6 +3,12 @@
 
 mod cli;
 
+/// mimalloc: candle's CPU kernels allocate many short-lived tensors; with the
+/// system allocator embedding spends much of its time in malloc and page
+/// faults (eval/README.md has the figures).
+#[global_allocator]
+static GLOBAL: mimalloc::MiMalloc = mimalloc::MiMalloc;
+
 use std::process::ExitCode;
 
 fn main() -> ExitCode {

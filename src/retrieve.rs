@@ -1,25 +1,88 @@
-//! Retrieval: resolve filters in the store, run BM25, and return chunks with
-//! their documents' fields, ranks, scores and a highlighted snippet. Every
-//! result says which retriever found it and at what rank and score.
+//! Retrieval: resolve filters in the store, run BM25, dense (embedding) or
+//! hybrid search, and return chunks with their documents' fields, ranks,
+//! scores and a highlighted snippet. Every result says which retrievers
+//! found it, at what rank and with what score, and how they were fused.
 //!
-//! invariant: retrieval never changes the store or the index.
+//! invariant: retrieval never changes the store; it may only bring the
+//! derived indexes up to date with it.
+//! invariant: no result lies outside the filters, whichever retriever found it.
 
 use crate::bm25::{Bm25Index, QueryTerm};
+use crate::embed::Embedder;
 use crate::error::Result;
+use crate::fuse::{RRF_K, Weights, rrf};
 use crate::store::{Store, StoredChunk};
 use crate::text::{fold_ws, term_spans};
-use crate::types::Filters;
+use crate::types::{ChunkId, Filters};
+use crate::vectors::{DEFAULT_SCALAR, VectorIndex};
 use serde::Serialize;
-use std::collections::HashSet;
+use std::collections::{HashMap, HashSet};
 use std::path::Path;
+use std::sync::Arc;
+
+/// Which retriever ranks the results.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum RetrieverKind {
+    Bm25,
+    Dense,
+    Hybrid,
+}
+
+impl RetrieverKind {
+    pub fn name(self) -> &'static str {
+        match self {
+            RetrieverKind::Bm25 => "bm25",
+            RetrieverKind::Dense => "dense",
+            RetrieverKind::Hybrid => "hybrid",
+        }
+    }
+}
+
+/// How to search.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct SearchOptions {
+    /// `None`: hybrid when an embedder and vectors are available, else BM25.
+    pub retriever: Option<RetrieverKind>,
+    pub weights: Weights,
+    pub rrf_k: f64,
+    /// Candidates taken from each retriever before fusing (at least k).
+    pub depth: usize,
+}
+
+impl Default for SearchOptions {
+    fn default() -> Self {
+        SearchOptions {
+            retriever: None,
+            weights: Weights::default(),
+            rrf_k: RRF_K,
+            depth: 100,
+        }
+    }
+}
+
+/// One retriever's view of a result.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Signal {
+    pub retriever: &'static str,
+    /// 1-based rank in that retriever's list; `None` when it did not return the chunk.
+    pub rank: Option<usize>,
+    /// BM25 score, or cosine similarity for dense.
+    pub score: Option<f32>,
+}
 
 /// A retrieved chunk and why it was returned.
 #[derive(Debug, Clone)]
 pub struct Retrieved {
     pub chunk: StoredChunk,
+    /// The retriever whose order this is: bm25, dense or hybrid.
     pub retriever: &'static str,
+    /// 1-based rank in the final order.
     pub rank: usize,
+    /// The final score: BM25, cosine, or the fused RRF score.
     pub score: f32,
+    /// Each retriever's rank and score for this chunk.
+    pub signals: Vec<Signal>,
 }
 
 /// A snippet of text with the byte ranges of matched terms.
@@ -29,43 +92,227 @@ pub struct Snippet {
     pub highlights: Vec<(usize, usize)>,
 }
 
-/// An open index: the store plus its BM25 index.
+/// An open index: the store, its BM25 index, and (with an embedder) its
+/// vector index.
 pub struct Index {
     pub store: Store,
     pub bm25: Bm25Index,
+    pub embedder: Option<Arc<dyn Embedder>>,
+    pub vectors: Option<VectorIndex>,
+    /// One-line notes for the user (a fallback to BM25, chunks not yet embedded).
+    pub notes: Vec<String>,
+    /// What `search` uses.
+    pub options: SearchOptions,
 }
 
 impl Index {
+    /// Open with BM25 only.
     pub fn open(dir: &Path) -> Result<Index> {
+        Self::open_with(dir, None)
+    }
+
+    /// Open with an embedder: its vector index is brought up to date with
+    /// the store. Chunks not yet embedded are not embedded here (that is
+    /// ingest's and reindex's job); a note says how many are missing.
+    pub fn open_with(dir: &Path, embedder: Option<Arc<dyn Embedder>>) -> Result<Index> {
         let store = Store::open(dir)?;
         let bm25 = Bm25Index::open_synced(dir, &store)?;
-        Ok(Index { store, bm25 })
+        let mut notes = Vec::new();
+        let vectors = match &embedder {
+            Some(e) => {
+                let v = VectorIndex::open_synced(dir, &store, e.id(), e.dim(), DEFAULT_SCALAR)?;
+                let missing = store.count_pending_embeddings(e.id())?;
+                if v.is_empty() {
+                    notes.push(format!(
+                        "note: no chunk has an embedding from {}; using BM25 only (run `onrecord reindex`)",
+                        e.id()
+                    ));
+                } else if missing > 0 {
+                    notes.push(format!(
+                        "note: {missing} chunk(s) have no embedding yet, so dense search cannot find them; \
+                         run `onrecord reindex`"
+                    ));
+                }
+                Some(v)
+            }
+            None => None,
+        };
+        Ok(Index {
+            store,
+            bm25,
+            embedder,
+            vectors,
+            notes,
+            options: SearchOptions::default(),
+        })
+    }
+
+    /// Whether dense search can run.
+    pub fn has_dense(&self) -> bool {
+        self.embedder.is_some() && self.vectors.as_ref().is_some_and(|v| !v.is_empty())
+    }
+
+    /// The retriever `opts` resolves to here: hybrid or dense fall back to
+    /// BM25 when there is no embedder or no vectors.
+    pub fn effective(&self, opts: &SearchOptions) -> RetrieverKind {
+        match opts.retriever {
+            _ if !self.has_dense() => RetrieverKind::Bm25,
+            None => RetrieverKind::Hybrid,
+            Some(r) => r,
+        }
+    }
+
+    /// The top `k` chunks for `query` under `filters`, with `self.options`.
+    pub fn search(&self, query: &str, filters: &Filters, k: usize) -> Result<Vec<Retrieved>> {
+        self.search_with(query, filters, k, &self.options)
+    }
+
+    /// The retriever `search` uses.
+    pub fn retriever(&self) -> RetrieverKind {
+        self.effective(&self.options)
     }
 
     /// The top `k` chunks for `query` under `filters`.
-    pub fn search(&self, query: &str, filters: &Filters, k: usize) -> Result<Vec<Retrieved>> {
+    pub fn search_with(
+        &self,
+        query: &str,
+        filters: &Filters,
+        k: usize,
+        opts: &SearchOptions,
+    ) -> Result<Vec<Retrieved>> {
+        let qv = match self.effective(opts) {
+            RetrieverKind::Bm25 => None,
+            _ => Some(self.embed_query(query)?),
+        };
+        self.search_embedded(query, qv.as_deref(), filters, k, opts)
+    }
+
+    /// As [`Index::search_with`], with the query's vector already made
+    /// (`None` is only valid when the effective retriever is BM25).
+    pub fn search_embedded(
+        &self,
+        query: &str,
+        qv: Option<&[f32]>,
+        filters: &Filters,
+        k: usize,
+        opts: &SearchOptions,
+    ) -> Result<Vec<Retrieved>> {
         let allowed = self.store.docs_matching(filters)?;
-        let hits = self.bm25.search(query, allowed.as_deref(), k)?;
-        let ids: Vec<_> = hits.iter().map(|h| h.chunk_id).collect();
+        let kind = self.effective(opts);
+        let depth = opts.depth.max(k);
+        let bm25 = match kind {
+            RetrieverKind::Dense => Vec::new(),
+            RetrieverKind::Bm25 => self.bm25.search(query, allowed.as_deref(), k)?,
+            RetrieverKind::Hybrid => self.bm25.search(query, allowed.as_deref(), depth)?,
+        };
+        let dense = match kind {
+            RetrieverKind::Bm25 => Vec::new(),
+            _ => {
+                let qv = qv.ok_or_else(|| {
+                    crate::Error::Invalid("dense search needs the query's vector".into())
+                })?;
+                let n = if kind == RetrieverKind::Dense {
+                    k
+                } else {
+                    depth
+                };
+                self.dense_search(qv, allowed.as_deref(), n)?
+            }
+        };
+        let bm25_ids: Vec<u64> = bm25.iter().map(|h| h.chunk_id.0).collect();
+        let dense_ids: Vec<u64> = dense.iter().map(|n| n.chunk_id.0).collect();
+        let bm25_score: HashMap<u64, f32> = bm25.iter().map(|h| (h.chunk_id.0, h.score)).collect();
+        let dense_score: HashMap<u64, f32> =
+            dense.iter().map(|n| (n.chunk_id.0, n.similarity)).collect();
+        let fused = rrf(
+            &[
+                (opts.weights.bm25, &bm25_ids),
+                (opts.weights.dense, &dense_ids),
+            ],
+            opts.rrf_k,
+        );
+        let order: Vec<(u64, f32)> = match kind {
+            RetrieverKind::Bm25 => bm25.iter().map(|h| (h.chunk_id.0, h.score)).collect(),
+            RetrieverKind::Dense => dense.iter().map(|n| (n.chunk_id.0, n.similarity)).collect(),
+            RetrieverKind::Hybrid => fused
+                .iter()
+                .take(k)
+                .map(|f| (f.id, f.score as f32))
+                .collect(),
+        };
+        let ranks: HashMap<u64, &Vec<Option<usize>>> =
+            fused.iter().map(|f| (f.id, &f.ranks)).collect();
+        let ids: Vec<ChunkId> = order.iter().map(|(id, _)| ChunkId(*id)).collect();
         // Pair by id: a hit whose chunk is no longer in the store is dropped
         // rather than lending its rank and score to a neighbour.
-        let mut chunks: std::collections::HashMap<_, _> = self
+        let mut chunks: HashMap<_, _> = self
             .store
             .chunks(&ids)?
             .into_iter()
-            .map(|c| (c.id, c))
+            .map(|c| (c.id.0, c))
             .collect();
-        Ok(hits
-            .iter()
-            .filter_map(|h| {
-                chunks.remove(&h.chunk_id).map(|c| Retrieved {
-                    chunk: c,
+        let mut out = Vec::with_capacity(order.len());
+        for (id, score) in order {
+            let Some(chunk) = chunks.remove(&id) else {
+                continue;
+            };
+            let r = ranks.get(&id);
+            let mut signals = Vec::new();
+            if kind != RetrieverKind::Dense {
+                signals.push(Signal {
                     retriever: "bm25",
-                    rank: h.rank,
-                    score: h.score,
-                })
-            })
-            .collect())
+                    rank: r.and_then(|r| r[0]),
+                    score: bm25_score.get(&id).copied(),
+                });
+            }
+            if kind != RetrieverKind::Bm25 {
+                signals.push(Signal {
+                    retriever: "dense",
+                    rank: r.and_then(|r| r[1]),
+                    score: dense_score.get(&id).copied(),
+                });
+            }
+            out.push(Retrieved {
+                chunk,
+                retriever: kind.name(),
+                rank: out.len() + 1,
+                score,
+                signals,
+            });
+        }
+        Ok(out)
+    }
+
+    /// The query's vector.
+    pub fn embed_query(&self, query: &str) -> Result<Vec<f32>> {
+        let e = self
+            .embedder
+            .as_ref()
+            .ok_or_else(|| crate::Error::Invalid("dense search needs an embedding model".into()))?;
+        Ok(e.embed(&[query])?.remove(0))
+    }
+
+    /// Nearest chunks to a query vector among the allowed documents.
+    pub fn dense_search(
+        &self,
+        qv: &[f32],
+        allowed_docs: Option<&[crate::types::DocId]>,
+        k: usize,
+    ) -> Result<Vec<crate::vectors::Neighbour>> {
+        let Some(v) = &self.vectors else {
+            return Ok(Vec::new());
+        };
+        let allowed: Option<HashSet<u64>> = match allowed_docs {
+            Some(docs) => Some(
+                self.store
+                    .chunk_ids_of(docs)?
+                    .into_iter()
+                    .map(|c| c.0)
+                    .collect(),
+            ),
+            None => None,
+        };
+        v.search(qv, allowed.as_ref(), k)
     }
 
     pub fn query_terms(&self, query: &str) -> Result<Vec<QueryTerm>> {

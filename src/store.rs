@@ -1,11 +1,14 @@
 //! The SQLite store: documents, pages and chunks, with character offsets into
-//! each page's text and content hashes. It is the source of truth; the BM25
-//! index is derived from it and can always be rebuilt.
+//! each page's text and content hashes, and the embedding vectors of chunk
+//! texts keyed by model and content hash. It is the source of truth; the BM25
+//! and vector indexes are derived from it and can always be rebuilt.
 //!
 //! invariant: a document is replaced in one transaction: readers see the old
 //! version or the new one, never a mix, and a failure leaves the old one.
 //! invariant: the store refuses to open a file written in another format.
 //! invariant: chunk ids are never reused (AUTOINCREMENT).
+//! invariant: an embedding is stored once per (model, embedding key); a chunk
+//! whose embedding input is unchanged is never embedded again.
 
 use crate::chunk::Chunk;
 use crate::error::{Error, Result};
@@ -14,7 +17,8 @@ use rusqlite::{Connection, OptionalExtension, params};
 use std::path::{Path, PathBuf};
 
 /// Format version of the store. Bump on any incompatible schema change.
-pub const STORE_FORMAT: u32 = 1;
+/// Format 2 added embeddings; a format 1 store is upgraded in place.
+pub const STORE_FORMAT: u32 = 2;
 pub const STORE_FILE: &str = "store.sqlite";
 
 const SCHEMA: &str = "
@@ -51,10 +55,60 @@ CREATE TABLE IF NOT EXISTS chunks (
     end_page INTEGER NOT NULL,
     end_char INTEGER NOT NULL,
     text TEXT NOT NULL,
-    hash TEXT NOT NULL
+    hash TEXT NOT NULL,
+    embed_key TEXT NOT NULL DEFAULT ''
 );
 CREATE INDEX IF NOT EXISTS chunks_doc ON chunks(doc);
 ";
+
+/// Tables added in format 2.
+const SCHEMA_2: &str = "
+CREATE TABLE IF NOT EXISTS embeddings (
+    rowid INTEGER PRIMARY KEY,
+    model TEXT NOT NULL,
+    key TEXT NOT NULL,
+    vector BLOB NOT NULL,
+    UNIQUE (model, key)
+);
+CREATE TABLE IF NOT EXISTS dropped_chunks (
+    chunk_id INTEGER PRIMARY KEY,
+    generation INTEGER NOT NULL
+);
+";
+
+/// The text a chunk is embedded as: its document's title (when it is a real
+/// title, not the id standing in for one) and its text.
+pub fn embedding_input(doc_id: &str, title: &str, text: &str) -> String {
+    if title.is_empty() || title == doc_id {
+        text.to_owned()
+    } else {
+        format!("{title}\n{text}")
+    }
+}
+
+/// Content key of an embedding input.
+pub fn embedding_key(input: &str) -> String {
+    crate::text::hash_hex(input.as_bytes())
+}
+
+/// Vectors are stored as little-endian f32.
+pub fn vector_to_blob(v: &[f32]) -> Vec<u8> {
+    v.iter().flat_map(|x| x.to_le_bytes()).collect()
+}
+
+pub fn blob_to_vector(b: &[u8]) -> Vec<f32> {
+    b.chunks_exact(4)
+        .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]]))
+        .collect()
+}
+
+/// A chunk still waiting for its embedding.
+#[derive(Debug, Clone)]
+pub struct PendingEmbedding {
+    pub chunk_id: ChunkId,
+    pub key: String,
+    pub input: String,
+}
 
 /// A document ready to be written: its identity, metadata, pages and chunks.
 #[derive(Debug, Clone)]
@@ -133,6 +187,46 @@ impl Store {
         Ok(store)
     }
 
+    /// Upgrade a format 1 store in place: add the embedding tables and the
+    /// embedding key of every chunk, in one transaction.
+    fn upgrade_from_1(&self) -> Result<()> {
+        let e = |e| Error::store(&self.path, e);
+        let tx = self.conn.unchecked_transaction().map_err(e)?;
+        tx.execute_batch("ALTER TABLE chunks ADD COLUMN embed_key TEXT NOT NULL DEFAULT '';")
+            .map_err(e)?;
+        tx.execute_batch(SCHEMA_2).map_err(e)?;
+        {
+            let mut read = tx
+                .prepare("SELECT c.id, d.doc_id, d.title, c.text FROM chunks c JOIN documents d ON d.rowid = c.doc")
+                .map_err(e)?;
+            let rows = read
+                .query_map([], |r| {
+                    Ok((
+                        r.get::<_, i64>(0)?,
+                        r.get::<_, String>(1)?,
+                        r.get::<_, String>(2)?,
+                        r.get::<_, String>(3)?,
+                    ))
+                })
+                .map_err(e)?
+                .collect::<rusqlite::Result<Vec<_>>>()
+                .map_err(e)?;
+            let mut upd = tx
+                .prepare("UPDATE chunks SET embed_key = ?2 WHERE id = ?1")
+                .map_err(e)?;
+            for (id, doc, title, text) in rows {
+                upd.execute(params![
+                    id,
+                    embedding_key(&embedding_input(&doc, &title, &text))
+                ])
+                .map_err(e)?;
+            }
+        }
+        tx.execute("UPDATE meta SET value = '2' WHERE key = 'format'", [])
+            .map_err(e)?;
+        tx.commit().map_err(e)
+    }
+
     /// Open an existing store; a missing one is an error that says how to make one.
     pub fn open(dir: &Path) -> Result<Store> {
         let path = dir.join(STORE_FILE);
@@ -167,6 +261,7 @@ impl Store {
 
     fn init(&self) -> Result<()> {
         self.conn.execute_batch(SCHEMA).map_err(|e| self.err(e))?;
+        self.conn.execute_batch(SCHEMA_2).map_err(|e| self.err(e))?;
         self.conn
             .execute(
                 "INSERT OR REPLACE INTO meta(key, value) VALUES ('format', ?1), ('generation', '0')",
@@ -186,6 +281,7 @@ impl Store {
             .unwrap_or(None);
         match found {
             Some(v) if v == STORE_FORMAT.to_string() => Ok(()),
+            Some(v) if v == "1" => self.upgrade_from_1(),
             other => Err(Error::FormatMismatch {
                 path: self.path.clone(),
                 found: other.unwrap_or_else(|| "unknown (not an onrecord store)".into()),
@@ -241,6 +337,15 @@ impl Store {
         let path = self.path.clone();
         let e = |e: rusqlite::Error| Error::store(&path, e);
         let tx = self.conn.transaction().map_err(e)?;
+        // The chunks of the version being replaced, so derived indexes can
+        // drop them: they are tagged with the generation this change makes.
+        tx.execute(
+            "INSERT OR REPLACE INTO dropped_chunks(chunk_id, generation)
+             SELECT c.id, (SELECT CAST(value AS INTEGER) + 1 FROM meta WHERE key = 'generation')
+             FROM chunks c JOIN documents d ON d.rowid = c.doc WHERE d.source = ?1",
+            params![doc.source],
+        )
+        .map_err(e)?;
         tx.execute(
             "DELETE FROM documents WHERE source = ?1",
             params![doc.source],
@@ -294,12 +399,13 @@ impl Store {
         {
             let mut ins = tx
                 .prepare(
-                    "INSERT INTO chunks(doc, seq, start_page, start_char, end_page, end_char, text, hash)
-                     VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8)",
+                    "INSERT INTO chunks(doc, seq, start_page, start_char, end_page, end_char, text, hash, embed_key)
+                     VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9)",
                 )
                 .map_err(e)?;
             for c in &doc.chunks {
                 let hash = crate::text::hash_hex(c.text.as_bytes());
+                let embed_key = embedding_key(&embedding_input(&doc.doc_id.0, &title, &c.text));
                 ins.execute(params![
                     rowid,
                     c.seq,
@@ -308,7 +414,8 @@ impl Store {
                     c.span.end_page,
                     c.span.end_char as i64,
                     c.text,
-                    hash
+                    hash,
+                    embed_key
                 ])
                 .map_err(e)?;
                 out.push(StoredChunk {
@@ -474,6 +581,147 @@ impl Store {
             .map_err(|e| self.err(e))?;
         rows.collect::<rusqlite::Result<Vec<_>>>()
             .map_err(|e| self.err(e))
+    }
+
+    /// Chunks with no stored embedding for `model`, in id order, after `after`.
+    pub fn pending_embeddings(
+        &self,
+        model: &str,
+        after: ChunkId,
+        limit: usize,
+    ) -> Result<Vec<PendingEmbedding>> {
+        let mut stmt = self
+            .conn
+            .prepare_cached(
+                "SELECT c.id, c.embed_key, d.doc_id, d.title, c.text
+                 FROM chunks c JOIN documents d ON d.rowid = c.doc
+                 WHERE c.id > ?2 AND NOT EXISTS
+                     (SELECT 1 FROM embeddings e WHERE e.model = ?1 AND e.key = c.embed_key)
+                 ORDER BY c.id LIMIT ?3",
+            )
+            .map_err(|e| self.err(e))?;
+        let rows = stmt
+            .query_map(params![model, after.0 as i64, limit as i64], |r| {
+                let (doc, title, text): (String, String, String) =
+                    (r.get(2)?, r.get(3)?, r.get(4)?);
+                Ok(PendingEmbedding {
+                    chunk_id: ChunkId(r.get::<_, i64>(0)? as u64),
+                    key: r.get(1)?,
+                    input: embedding_input(&doc, &title, &text),
+                })
+            })
+            .map_err(|e| self.err(e))?;
+        rows.collect::<rusqlite::Result<Vec<_>>>()
+            .map_err(|e| self.err(e))
+    }
+
+    /// How many chunks have no stored embedding for `model`.
+    pub fn count_pending_embeddings(&self, model: &str) -> Result<u64> {
+        self.conn
+            .query_row(
+                "SELECT count(*) FROM chunks c WHERE NOT EXISTS
+                     (SELECT 1 FROM embeddings e WHERE e.model = ?1 AND e.key = c.embed_key)",
+                params![model],
+                |r| r.get::<_, i64>(0).map(|n| n as u64),
+            )
+            .map_err(|e| self.err(e))
+    }
+
+    /// Store vectors for `model`, all in one transaction. A key already
+    /// stored keeps its vector.
+    pub fn put_embeddings(&mut self, model: &str, items: &[(String, Vec<f32>)]) -> Result<()> {
+        let path = self.path.clone();
+        let e = |e: rusqlite::Error| Error::store(&path, e);
+        let tx = self.conn.transaction().map_err(e)?;
+        {
+            let mut ins = tx
+                .prepare("INSERT OR IGNORE INTO embeddings(model, key, vector) VALUES (?1, ?2, ?3)")
+                .map_err(e)?;
+            for (key, v) in items {
+                ins.execute(params![model, key, vector_to_blob(v)])
+                    .map_err(e)?;
+            }
+        }
+        tx.commit().map_err(e)
+    }
+
+    /// Chunks that have an embedding for `model`, with the vector, where the
+    /// chunk id is above `after_chunk` or the embedding row is above
+    /// `after_row` (both zero: every one).
+    pub fn for_each_embedded_chunk(
+        &self,
+        model: &str,
+        after_chunk: u64,
+        after_row: i64,
+        mut f: impl FnMut(ChunkId, Vec<f32>) -> Result<()>,
+    ) -> Result<()> {
+        let mut stmt = self
+            .conn
+            .prepare(
+                "SELECT c.id, e.vector FROM chunks c JOIN embeddings e
+                     ON e.model = ?1 AND e.key = c.embed_key
+                 WHERE c.id > ?2 OR e.rowid > ?3 ORDER BY c.id",
+            )
+            .map_err(|e| self.err(e))?;
+        let rows = stmt
+            .query_map(params![model, after_chunk as i64, after_row], |r| {
+                Ok((r.get::<_, i64>(0)? as u64, r.get::<_, Vec<u8>>(1)?))
+            })
+            .map_err(|e| self.err(e))?;
+        for r in rows {
+            let (id, blob) = r.map_err(|e| self.err(e))?;
+            f(ChunkId(id), blob_to_vector(&blob))?;
+        }
+        Ok(())
+    }
+
+    /// The highest embedding row and chunk id so far (0 when none).
+    pub fn high_water(&self) -> Result<(i64, u64)> {
+        self.conn
+            .query_row(
+                "SELECT coalesce((SELECT max(rowid) FROM embeddings), 0),
+                        coalesce((SELECT seq FROM sqlite_sequence WHERE name = 'chunks'), 0)",
+                [],
+                |r| Ok((r.get::<_, i64>(0)?, r.get::<_, i64>(1)? as u64)),
+            )
+            .map_err(|e| self.err(e))
+    }
+
+    /// Chunk ids removed by changes after `generation`.
+    pub fn dropped_since(&self, generation: u64) -> Result<Vec<ChunkId>> {
+        let mut stmt = self
+            .conn
+            .prepare("SELECT chunk_id FROM dropped_chunks WHERE generation > ?1")
+            .map_err(|e| self.err(e))?;
+        let rows = stmt
+            .query_map(params![generation as i64], |r| {
+                r.get::<_, i64>(0).map(|v| ChunkId(v as u64))
+            })
+            .map_err(|e| self.err(e))?;
+        rows.collect::<rusqlite::Result<Vec<_>>>()
+            .map_err(|e| self.err(e))
+    }
+
+    /// The ids of every chunk of these documents.
+    pub fn chunk_ids_of(&self, docs: &[DocId]) -> Result<Vec<ChunkId>> {
+        let mut stmt = self
+            .conn
+            .prepare_cached(
+                "SELECT c.id FROM chunks c JOIN documents d ON d.rowid = c.doc WHERE d.doc_id = ?1",
+            )
+            .map_err(|e| self.err(e))?;
+        let mut out = Vec::new();
+        for d in docs {
+            let rows = stmt
+                .query_map(params![d.0], |r| {
+                    r.get::<_, i64>(0).map(|v| ChunkId(v as u64))
+                })
+                .map_err(|e| self.err(e))?;
+            for r in rows {
+                out.push(r.map_err(|e| self.err(e))?);
+            }
+        }
+        Ok(out)
     }
 
     /// (documents, pages, chunks)

@@ -135,3 +135,94 @@ fn clear_errors_for_a_missing_index_and_bad_arguments() {
         assert!(help.contains(cmd), "help lacks {cmd}");
     }
 }
+
+/// Without a model: one line says so, and search, ask and ingest carry on
+/// with BM25. With the default model (when present): hybrid by default,
+/// each result explained, and `--retriever` honoured.
+#[test]
+fn retrievers_from_the_command_line_with_and_without_a_model() {
+    let src = tempfile::tempdir().unwrap();
+    let idx = tempfile::tempdir().unwrap();
+    let empty = tempfile::tempdir().unwrap();
+    write(
+        src.path(),
+        "memo.txt",
+        "The budget for the Pier 3 works has increased by $2.3M because of a boulder layer.",
+    );
+    write(
+        src.path(),
+        "minutes.txt",
+        "The transit board cancelled bus route 90X after ridership fell.",
+    );
+    let run = |args: &[&str], models: &std::path::Path| {
+        Command::new(env!("CARGO_BIN_EXE_onrecord"))
+            .args(args)
+            .env("ONRECORD_INDEX", idx.path())
+            .env("ONRECORD_MODELS", models)
+            .env("HF_HOME", empty.path())
+            .env_remove("ONRECORD_EMBEDDER")
+            .output()
+            .expect("the binary runs")
+    };
+    let out = run(&["ingest", src.path().to_str().unwrap()], empty.path());
+    assert!(out.status.success());
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(
+        err.lines()
+            .filter(|l| l.contains("using BM25 only"))
+            .count(),
+        1,
+        "{err}"
+    );
+    let out = run(&["search", "pier budget", "--json"], empty.path());
+    assert!(out.status.success());
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(v["retriever"], "bm25");
+    assert_eq!(v["results"][0]["signals"][0]["retriever"], "bm25");
+    // A model folder that is not there is an error that names it.
+    let out = run(
+        &["search", "pier", "--embedder", "/no/such/model"],
+        empty.path(),
+    );
+    assert_eq!(out.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("/no/such/model"));
+
+    let Some(_) = crate::support::model() else {
+        return;
+    };
+    let models = onrecord::embed::models_dir();
+    // The model is now found: re-running ingest embeds the stored chunks.
+    let out = run(&["ingest", src.path().to_str().unwrap(), "--json"], &models);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(v["embedding"]["report"]["embedded"], 2);
+    let out = run(
+        &["search", "cost overruns on the ferry terminal", "--json"],
+        &models,
+    );
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(v["retriever"], "hybrid");
+    assert_eq!(v["results"][0]["doc_id"], "memo", "{v:#}");
+    let signals = v["results"][0]["signals"].as_array().unwrap();
+    assert_eq!(signals.len(), 2);
+    assert_eq!(v["fusion"]["k"], 60.0);
+    let out = run(
+        &["search", "cost overruns on the ferry terminal", "--explain"],
+        &models,
+    );
+    let text = String::from_utf8(out.stdout).unwrap();
+    assert!(
+        text.contains("why: bm25") && text.contains("dense #1"),
+        "{text}"
+    );
+    let out = run(
+        &["search", "ferry", "--retriever", "dense", "--json"],
+        &models,
+    );
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(v["retriever"], "dense");
+}

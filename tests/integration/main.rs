@@ -6,4 +6,9 @@ mod cli;
 mod demo;
 mod ingest;
 mod open_data;
+mod retrieval;
 mod support;
+
+/// As in the binary: the embedding model allocates many short-lived tensors.
+#[global_allocator]
+static GLOBAL: mimalloc::MiMalloc = mimalloc::MiMalloc;

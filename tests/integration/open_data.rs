@@ -1,32 +1,92 @@
 //! Checks of the main job against published figures on open data.
 
-use crate::support::{shared_data, slow_enabled};
+use crate::support::{model, shared_data, slow_enabled};
 
-/// BM25 over SciFact (BEIR layout, test qrels, 300 queries, 5,183 abstracts).
+/// BM25, dense and hybrid retrieval over SciFact (BEIR layout, test qrels,
+/// 300 queries, 5,183 abstracts), from one ingest.
 /// Sources: BEIR paper (Thakur et al. 2021, Table 2) BM25 nDCG@10 = 0.665;
 /// Anserini BM25 flat regression (castorini/anserini,
-/// regressions-beir-v1.0.0-scifact.flat) nDCG@10 = 0.679, R@100 = 0.925.
+/// regressions-beir-v1.0.0-scifact.flat) nDCG@10 = 0.679, R@100 = 0.925;
+/// all-MiniLM-L6-v2 on SciFact about 0.64 in the MTEB leaderboard (from
+/// memory). Floors: BM25 0.65, dense 0.60, hybrid 0.68 (the bars
+/// for the slow suite), and HNSW recall@10 against brute-force exact search
+/// of at least 0.98 (common practice for a graph index's operating point).
 #[test]
-fn bm25_on_scifact_reaches_the_published_baseline() {
-    if !slow_enabled("bm25_on_scifact") {
+fn retrieval_on_scifact_reaches_the_published_baselines() {
+    if !slow_enabled("retrieval_on_scifact") {
         return;
     }
     let Some(dir) = shared_data("scifact/beir") else {
         return;
     };
+    let embedder = model();
     let tmp = tempfile::tempdir().unwrap();
-    let r = onrecord::eval::beir::run(&dir, "test", tmp.path(), false).unwrap();
-    eprintln!(
-        "SciFact BM25: nDCG@10 {:.4}, recall@100 {:.4}, MRR@10 {:.4} over {} queries",
-        r.ndcg10, r.recall100, r.mrr10, r.queries
-    );
-    assert_eq!(r.queries, 300);
-    assert_eq!(r.documents, 5183);
-    assert!(r.ndcg10 >= 0.65, "nDCG@10 {:.4} below 0.65", r.ndcg10);
+    let r = onrecord::eval::beir::run_all(
+        &dir,
+        "test",
+        tmp.path(),
+        false,
+        embedder.clone(),
+        &[],
+        Default::default(),
+        // One chunk per abstract (BEIR's unit; the model truncates at 256
+        // word pieces, as MTEB does), which also halves the embedding work.
+        onrecord::chunk::ChunkConfig {
+            max_tokens: 512,
+            overlap_tokens: 0,
+        },
+    )
+    .unwrap();
+    for x in &r.runs {
+        eprintln!(
+            "SciFact {}: nDCG@10 {:.4}, recall@100 {:.4}, MRR@10 {:.4} over {} queries; search p50 {:.2} ms",
+            x.retriever, x.ndcg10, x.recall100, x.mrr10, x.queries, x.search_p50_ms
+        );
+        assert_eq!(x.queries, 300);
+        assert_eq!(x.documents, 5183);
+    }
+    let by = |name: &str| r.runs.iter().find(|x| x.retriever == name);
+    let bm25 = by("bm25").expect("bm25 always runs");
     assert!(
-        r.recall100 >= 0.85,
-        "recall@100 {:.4} far below Anserini's 0.925",
-        r.recall100
+        bm25.ndcg10 >= 0.65,
+        "BM25 nDCG@10 {:.4} below 0.65",
+        bm25.ndcg10
+    );
+    assert!(
+        bm25.recall100 >= 0.85,
+        "BM25 recall@100 {:.4} far below Anserini's 0.925",
+        bm25.recall100
+    );
+    if embedder.is_none() {
+        return;
+    }
+    let v = r.vectors.as_ref().expect("vector figures with a model");
+    eprintln!("SciFact vectors: {}", serde_json::to_string(v).unwrap());
+    let dense = by("dense").expect("dense runs with a model");
+    let hybrid = by("hybrid").expect("hybrid runs with a model");
+    assert!(
+        dense.ndcg10 >= 0.60,
+        "dense nDCG@10 {:.4} below 0.60",
+        dense.ndcg10
+    );
+    assert!(
+        hybrid.ndcg10 >= 0.68,
+        "hybrid nDCG@10 {:.4} below 0.68",
+        hybrid.ndcg10
+    );
+    assert!(
+        hybrid.ndcg10 > bm25.ndcg10 && hybrid.ndcg10 > dense.ndcg10,
+        "fusion beats both parts"
+    );
+    let f16 = v
+        .graph
+        .iter()
+        .find(|g| g.scalar == onrecord::vectors::Scalar::F16)
+        .unwrap();
+    assert!(
+        f16.recall10 >= 0.98,
+        "HNSW f16 recall@10 {:.4} below 0.98",
+        f16.recall10
     );
 }
 

@@ -106,3 +106,84 @@ pub fn schema_problems(v: &serde_json::Value, schema: &serde_json::Value, at: &s
     }
     out
 }
+
+/// The default embedding model, or None with a clear message when it is not
+/// on this machine. Under CI=true its absence is a failure: CI runs
+/// `eval/models/fetch` first.
+pub fn model() -> Option<std::sync::Arc<dyn onrecord::embed::Embedder>> {
+    let r =
+        onrecord::embed::resolve(&onrecord::embed::EmbedderChoice::Auto).expect("auto never fails");
+    if r.embedder.is_some() {
+        return r.embedder;
+    }
+    let msg = format!(
+        "embedding model absent ({}); run eval/models/fetch",
+        r.note.unwrap_or_default()
+    );
+    if std::env::var("CI").is_ok_and(|v| v == "true") {
+        panic!("{msg} (required under CI=true)");
+    }
+    eprintln!("{msg}; check skipped");
+    None
+}
+
+/// A small deterministic embedder for testing the index mechanics without a
+/// model: each word (lower-cased) adds to one of 64 dimensions chosen by its
+/// hash, and the vector is scaled to unit length. It counts what it embeds
+/// and can be told to fail after some number of calls.
+pub struct HashEmbedder {
+    pub id: String,
+    pub embedded: std::sync::atomic::AtomicUsize,
+    pub calls: std::sync::atomic::AtomicUsize,
+    pub fail_after_calls: Option<usize>,
+}
+
+impl HashEmbedder {
+    pub fn new() -> HashEmbedder {
+        HashEmbedder {
+            id: "hash-words@test".into(),
+            embedded: Default::default(),
+            calls: Default::default(),
+            fail_after_calls: None,
+        }
+    }
+
+    pub fn embedded(&self) -> usize {
+        self.embedded.load(std::sync::atomic::Ordering::SeqCst)
+    }
+}
+
+impl onrecord::embed::Embedder for HashEmbedder {
+    fn id(&self) -> &str {
+        &self.id
+    }
+    fn dim(&self) -> usize {
+        64
+    }
+    fn token_ids(&self, text: &str) -> onrecord::Result<Vec<u32>> {
+        Ok(text.split_whitespace().map(|w| w.len() as u32).collect())
+    }
+    fn embed(&self, texts: &[&str]) -> onrecord::Result<Vec<Vec<f32>>> {
+        use std::sync::atomic::Ordering::SeqCst;
+        let call = self.calls.fetch_add(1, SeqCst);
+        if self.fail_after_calls.is_some_and(|n| call >= n) {
+            return Err(onrecord::Error::Invalid(
+                "test embedder told to fail".into(),
+            ));
+        }
+        self.embedded.fetch_add(texts.len(), SeqCst);
+        Ok(texts
+            .iter()
+            .map(|t| {
+                let mut v = vec![0f32; 64];
+                for w in onrecord::text::terms(t) {
+                    let h = onrecord::text::hash_hex(w.as_bytes());
+                    let i = usize::from_str_radix(&h[..4], 16).unwrap() % 64;
+                    v[i] += 1.0;
+                }
+                onrecord::embed::normalise(&mut v);
+                v
+            })
+            .collect())
+    }
+}

@@ -1,0 +1,96 @@
+//! Models from the model hub: `onrecord models pull <repo-id>` downloads a
+//! model's files into the hub's standard cache (`HF_HOME`, else
+//! `~/.cache/huggingface`), and offline lookups find a model already there.
+//! The folder that results is loaded like any local model folder.
+
+use super::model_err;
+use crate::error::Result;
+use std::path::{Path, PathBuf};
+
+/// Files every model needs.
+pub const REQUIRED: [&str; 3] = ["config.json", "tokenizer.json", "model.safetensors"];
+/// Files used when present (sentence-transformers settings).
+pub const OPTIONAL: [&str; 3] = [
+    "sentence_bert_config.json",
+    "modules.json",
+    "1_Pooling/config.json",
+];
+
+/// The snapshot folder of `repo_id` in the hub cache, if all required files are there.
+pub fn cached(repo_id: &str) -> Option<PathBuf> {
+    let repo = hf_hub::Cache::from_env().model(repo_id.to_string());
+    let config = repo.get("config.json")?;
+    let dir = config.parent()?.to_path_buf();
+    super::is_model_dir(&dir).then_some(dir)
+}
+
+/// Download `repo_id` into the hub cache and return its snapshot folder.
+pub fn pull(repo_id: &str, progress: bool) -> Result<PathBuf> {
+    let api = hf_hub::api::sync::ApiBuilder::from_env()
+        .with_progress(progress)
+        .build()
+        .map_err(|e| model_err(Path::new(repo_id), e))?;
+    let repo = api.model(repo_id.to_string());
+    let mut dir = None;
+    for f in REQUIRED {
+        let p = repo
+            .get(f)
+            .map_err(|e| model_err(Path::new(repo_id), format!("fetching {f}: {e}")))?;
+        dir = p.parent().map(Path::to_path_buf);
+    }
+    for f in OPTIONAL {
+        // Absent in many repositories; the defaults then apply.
+        let _ = repo.get(f);
+    }
+    dir.ok_or_else(|| model_err(Path::new(repo_id), "no files were fetched"))
+}
+
+/// `owner/name` for a snapshot folder inside the hub cache
+/// (`.../models--owner--name/snapshots/<commit>`).
+pub fn display_name(dir: &Path) -> Option<String> {
+    let snapshots = dir.parent()?;
+    if snapshots.file_name()? != "snapshots" {
+        return None;
+    }
+    let repo = snapshots.parent()?.file_name()?.to_str()?;
+    let rest = repo.strip_prefix("models--")?;
+    Some(rest.replacen("--", "/", 1))
+}
+
+/// A model folder from what the user typed: a folder path, or the id of a
+/// repository already in the hub cache.
+pub fn resolve_repo_or_dir(given: &Path) -> Result<PathBuf> {
+    if given.is_dir() {
+        return Ok(given.to_path_buf());
+    }
+    let s = given.to_string_lossy();
+    if s.matches('/').count() == 1
+        && !s.starts_with('.')
+        && !s.starts_with('/')
+        && let Some(dir) = cached(&s)
+    {
+        return Ok(dir);
+    }
+    Err(model_err(
+        given,
+        "no model folder here (and no such repository in the hub cache); \
+         pass a folder holding config.json, tokenizer.json and model.safetensors, \
+         or run `onrecord models pull <repo-id>` first",
+    ))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn snapshot_folders_get_their_repository_name() {
+        let d =
+            Path::new("/c/hub/models--sentence-transformers--all-MiniLM-L6-v2/snapshots/abc123");
+        assert_eq!(
+            display_name(d).as_deref(),
+            Some("sentence-transformers/all-MiniLM-L6-v2")
+        );
+        assert_eq!(display_name(Path::new("/m/all-MiniLM-L6-v2")), None);
+    }
+}
