@@ -226,3 +226,54 @@ fn retrievers_from_the_command_line_with_and_without_a_model() {
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     assert_eq!(v["retriever"], "dense");
 }
+
+/// The README's demo command: BM25 alone with no model on the machine,
+/// hybrid retrieval when the default model is present.
+#[test]
+fn the_demo_command_uses_hybrid_when_the_model_is_present() {
+    if !crate::support::slow_enabled("demo_command_retrievers") {
+        return;
+    }
+    let empty = tempfile::tempdir().unwrap();
+    let demo = |models: &std::path::Path| {
+        let work = tempfile::tempdir().unwrap();
+        let out = Command::new(env!("CARGO_BIN_EXE_onrecord"))
+            .args(["demo", "--json", "--workdir"])
+            .arg(work.path())
+            .env("ONRECORD_MODELS", models)
+            .env("HF_HOME", empty.path())
+            .env_remove("ONRECORD_EMBEDDER")
+            .output()
+            .expect("the binary runs");
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        let records: Vec<serde_json::Value> = String::from_utf8(out.stdout)
+            .unwrap()
+            .lines()
+            .map(|l| serde_json::from_str(l).unwrap())
+            .collect();
+        assert_eq!(records.len(), onrecord::demo::SAMPLE_QUESTIONS.len());
+        (records, String::from_utf8(out.stderr).unwrap())
+    };
+    let (records, err) = demo(empty.path());
+    assert!(err.contains("Retrieval: BM25 only"), "{err}");
+    assert!(records.iter().all(|r| r["config"]["retriever"] == "bm25"));
+
+    if crate::support::model().is_none() {
+        return;
+    }
+    let (records, err) = demo(&onrecord::embed::models_dir());
+    assert!(err.contains("Retrieval: hybrid"), "{err}");
+    for r in &records {
+        assert_eq!(r["config"]["retriever"], "hybrid");
+        assert!(
+            r["config"]["embedder"]
+                .as_str()
+                .is_some_and(|e| e.starts_with("all-MiniLM-L6-v2@")),
+            "{r}"
+        );
+    }
+}
