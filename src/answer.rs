@@ -7,12 +7,18 @@
 //! content hashes, ranks and scores), `sentences` (each with `text`,
 //! `verdict` = `supported` | `struck`, `reason`, `confidence` and
 //! `citations`, each with `doc_id`, `title`, `page`, `quote`, offsets and
-//! the page hash), `abstained`, `abstain_reason` and `caution`.
+//! the page hash), `abstained`, `abstain_reason` and `caution`; when a
+//! language model drafted, `draft` (the model's raw text, its costs, and —
+//! if the answer fell back to the extractive drafter — the model's own
+//! verdicts and the reason), and with `--rewrite`, `queries`.
 //!
 //! invariant: no sentence reaches the answer without passing the verifier.
+//! invariant: a fallback answer is marked as one, and the struck model
+//! sentences it replaced stay in the record.
 
-use crate::draft::{DraftRequest, Drafter};
+use crate::draft::{DraftRequest, Drafter, Extractive, ModelDraft};
 use crate::error::Result;
+use crate::llm::{GenOptions, Generator};
 use crate::retrieve::{Index, Retrieved, RetrieverKind, SearchOptions};
 use crate::types::{ChunkId, DocId, Filters};
 use crate::verify::{Judge, Verdict, VerifiedSentence, verify};
@@ -67,7 +73,27 @@ pub struct AnswerRecord {
     pub abstained: bool,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub abstain_reason: Option<String>,
+    /// What a language model drafted, when one did.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub draft: Option<DraftRecord>,
+    /// Extra search queries a model proposed (`--rewrite`), fused with the question.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub queries: Vec<String>,
     pub caution: String,
+}
+
+/// A language model's draft as it was written and as the verifier judged it.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct DraftRecord {
+    #[serde(flatten)]
+    pub model: ModelDraft,
+    /// Why the answer is the extractive drafter's instead of the model's.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub fallback: Option<String>,
+    /// The verdicts on the model's own sentences when the answer fell back
+    /// (otherwise they are the answer's `sentences`).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub verdicts: Vec<VerifiedSentence>,
 }
 
 impl AnswerRecord {
@@ -112,6 +138,24 @@ pub fn diversify(hits: Vec<Retrieved>, k: usize, per_doc: usize) -> Vec<Retrieve
     out
 }
 
+/// Everything `ask_with` needs besides the index and the question.
+pub struct AskPlan<'a> {
+    pub filters: &'a Filters,
+    pub k: usize,
+    pub drafter: &'a dyn Drafter,
+    pub drafter_settings: serde_json::Value,
+    pub judge: &'a dyn Judge,
+    /// When a model's draft has no supported sentence, answer with this
+    /// drafter instead (and say so).
+    pub fallback: Option<&'a dyn Drafter>,
+    /// Ask this model for up to [`MAX_REWRITES`] extra search queries and fuse
+    /// their results with the question's.
+    pub rewrite: Option<&'a dyn Generator>,
+}
+
+/// Most extra queries `--rewrite` adds.
+pub const MAX_REWRITES: usize = 3;
+
 /// Run the whole chain for one question.
 pub fn ask(
     index: &Index,
@@ -122,11 +166,77 @@ pub fn ask(
     drafter_settings: serde_json::Value,
     judge: &dyn Judge,
 ) -> Result<AnswerRecord> {
-    let mut retrieved = diversify(
-        index.search(question, filters, k * 3)?,
-        k,
-        MAX_CHUNKS_PER_DOC,
-    );
+    ask_with(
+        index,
+        question,
+        AskPlan {
+            filters,
+            k,
+            drafter,
+            drafter_settings,
+            judge,
+            fallback: None,
+            rewrite: None,
+        },
+    )
+}
+
+/// Extra search queries for `question` from a model.
+pub fn rewrite_queries(model: &dyn Generator, question: &str) -> Result<Vec<String>> {
+    let messages = crate::prompt::rewrite_messages(question, MAX_REWRITES)?;
+    let opts = GenOptions {
+        max_tokens: 96,
+        ..GenOptions::default()
+    };
+    let g = model.generate(&messages, &opts, &mut |_| {})?;
+    Ok(crate::prompt::parse_queries(
+        &g.text,
+        question,
+        MAX_REWRITES,
+    ))
+}
+
+/// The chunks the drafter reads: the question's top `k` (at most
+/// [`MAX_CHUNKS_PER_DOC`] per document), fused by reciprocal rank with the
+/// results of any extra `queries`; with hybrid retrieval, BM25's own top
+/// chunks for the question follow.
+pub fn gather(
+    index: &Index,
+    question: &str,
+    queries: &[String],
+    filters: &Filters,
+    k: usize,
+) -> Result<Vec<Retrieved>> {
+    let hits = index.search(question, filters, k * 3)?;
+    let hits = if queries.is_empty() {
+        hits
+    } else {
+        let mut lists = vec![hits];
+        for q in queries {
+            lists.push(index.search(q, filters, k * 3)?);
+        }
+        let ids: Vec<Vec<u64>> = lists
+            .iter()
+            .map(|l| l.iter().map(|r| r.chunk.id.0).collect())
+            .collect();
+        let weighted: Vec<(f64, &[u64])> = ids.iter().map(|l| (1.0, l.as_slice())).collect();
+        let mut by_id: HashMap<u64, Retrieved> = HashMap::new();
+        for l in lists {
+            for r in l {
+                by_id.entry(r.chunk.id.0).or_insert(r);
+            }
+        }
+        crate::fuse::rrf(&weighted, crate::fuse::RRF_K)
+            .into_iter()
+            .filter_map(|f| {
+                let mut r = by_id.remove(&f.id)?;
+                r.score = f.score as f32;
+                r.retriever = "multi-query";
+                Some(r)
+            })
+            .collect()
+    };
+    let mut retrieved = diversify(hits, k, MAX_CHUNKS_PER_DOC);
     if index.retriever() == RetrieverKind::Hybrid {
         // Fusion reorders; it must not hide what lexical search ranks at the
         // top. BM25's own top chunks that the fused list left out follow it,
@@ -144,20 +254,54 @@ pub fn ask(
             }
         }
     }
+    Ok(retrieved)
+}
+
+/// Run the whole chain for one question, with the plan's options.
+pub fn ask_with(index: &Index, question: &str, plan: AskPlan<'_>) -> Result<AnswerRecord> {
+    let queries = match plan.rewrite {
+        Some(m) => rewrite_queries(m, question)?,
+        None => vec![],
+    };
+    let retrieved = gather(index, question, &queries, plan.filters, plan.k)?;
     let query_terms = index.query_terms(question)?;
-    let draft = drafter.draft(&DraftRequest {
+    let req = DraftRequest {
         question,
         retrieved: &retrieved,
         query_terms: &query_terms,
-    })?;
+    };
     let chunks: HashMap<ChunkId, _> = retrieved
         .iter()
         .map(|r| (r.chunk.id, r.chunk.clone()))
         .collect();
     let store = &index.store;
     let page_hash = |d: &DocId, p: u32| store.page(d, p).ok().flatten().map(|(_, h)| h);
-    let sentences = verify(&draft, &chunks, judge, &page_hash);
-    let any_supported = sentences.iter().any(|s| s.verdict == Verdict::Supported);
+    let mut draft = plan.drafter.draft(&req)?;
+    let mut sentences = verify(&draft, &chunks, plan.judge, &page_hash);
+    let mut drafter_name = plan.drafter.name();
+    let mut draft_record = draft.model.take().map(|model| DraftRecord {
+        model,
+        fallback: None,
+        verdicts: vec![],
+    });
+    let supported = |v: &[VerifiedSentence]| v.iter().any(|s| s.verdict == Verdict::Supported);
+    if let (Some(rec), Some(fb)) = (draft_record.as_mut(), plan.fallback)
+        && !supported(&sentences)
+    {
+        let why = if !sentences.is_empty() {
+            "every sentence of the model's draft was struck by the verifier"
+        } else if rec.model.said_no_answer {
+            "the model found no answer in the excerpts"
+        } else {
+            "the model's draft had no sentence with a citation to check"
+        };
+        rec.fallback = Some(format!("{why}; this is the {} answer", fb.name()));
+        rec.verdicts = std::mem::take(&mut sentences);
+        draft = fb.draft(&req)?;
+        sentences = verify(&draft, &chunks, plan.judge, &page_hash);
+        drafter_name = format!("{} (fallback from {})", fb.name(), drafter_name);
+    }
+    let any_supported = supported(&sentences);
     let abstain_reason = match (&draft.abstain, any_supported) {
         (Some(r), _) => Some(r.clone()),
         (None, false) => Some("every drafted sentence was struck by the verifier".into()),
@@ -173,11 +317,11 @@ pub fn ask(
             embedder: (index.retriever() != crate::retrieve::RetrieverKind::Bm25)
                 .then(|| index.embedder.as_ref().map(|e| e.id().to_owned()))
                 .flatten(),
-            k,
-            drafter: drafter.name(),
-            judge: judge.name().into(),
-            filters: filters.clone(),
-            drafter_settings,
+            k: plan.k,
+            drafter: drafter_name,
+            judge: plan.judge.name().into(),
+            filters: plan.filters.clone(),
+            drafter_settings: plan.drafter_settings,
         },
         retrieved: retrieved
             .iter()
@@ -195,9 +339,16 @@ pub fn ask(
             .collect(),
         abstained: !any_supported,
         abstain_reason,
+        draft: draft_record,
+        queries,
         sentences,
         caution: CAUTION.into(),
     })
+}
+
+/// The default fallback for model drafters.
+pub fn default_fallback() -> Extractive {
+    Extractive::default()
 }
 
 /// Current time as an RFC 3339 UTC timestamp.
@@ -237,6 +388,12 @@ pub fn render_text(a: &AnswerRecord) -> String {
     use std::fmt::Write;
     let mut out = String::new();
     let _ = writeln!(out, "Question: {}\n", a.question);
+    if !a.queries.is_empty() {
+        let _ = writeln!(out, "Also searched for: {}\n", a.queries.join(" | "));
+    }
+    if let Some(fb) = a.draft.as_ref().and_then(|d| d.fallback.as_deref()) {
+        let _ = writeln!(out, "{}\n", wrap(&format!("Note: {fb}."), 78));
+    }
     // Footnote numbers: one per distinct (doc, page, quote).
     let mut notes: Vec<&crate::types::Citation> = Vec::new();
     if a.abstained {
@@ -284,7 +441,10 @@ pub fn render_text(a: &AnswerRecord) -> String {
             let _ = writeln!(out, "      \u{201C}{}\u{201D}", c.quote);
         }
     }
-    let struck: Vec<&VerifiedSentence> = a.struck().collect();
+    let mut struck: Vec<&VerifiedSentence> = a.struck().collect();
+    if let Some(d) = &a.draft {
+        struck.extend(d.verdicts.iter().filter(|s| s.verdict == Verdict::Struck));
+    }
     if !struck.is_empty() {
         let _ = writeln!(out, "\nStruck by the verifier ({})", struck.len());
         for s in struck {

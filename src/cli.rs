@@ -5,12 +5,14 @@
 use anyhow::{Context, Result, bail};
 use clap::{Args, Parser, Subcommand, ValueEnum};
 use onrecord::answer::{self, AnswerRecord, CAUTION};
-use onrecord::draft::{Extractive, ExtractiveConfig};
+use onrecord::draft::{Drafter, Extractive, ExtractiveConfig, ModelDraftConfig, ModelDrafter};
 use onrecord::embed::{self, Embedder, EmbedderChoice};
 use onrecord::extract::ExtractOptions;
 use onrecord::extract::pdf::{PdfRoute, default_route};
 use onrecord::fuse::Weights;
 use onrecord::ingest::{self, IngestConfig, Severity};
+use onrecord::llm::remote::{DEFAULT_KEY_ENV, RemoteConfig, RemoteModel};
+use onrecord::llm::{GenOptions, Generator, LlmChoice};
 use onrecord::manifest::Manifest;
 use onrecord::retrieve::{self, Index, RetrieverKind, SearchOptions};
 use onrecord::types::{DocId, DocMeta, Filters, check_date};
@@ -18,6 +20,7 @@ use onrecord::verify::RulesJudge;
 use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
 use std::process::ExitCode;
+use std::sync::Arc;
 
 const AFTER_HELP: &str = "\
 Typical session:
@@ -67,6 +70,128 @@ impl RetrieverArg {
             RetrieverArg::Dense => RetrieverKind::Dense,
             RetrieverArg::Hybrid => RetrieverKind::Hybrid,
         }
+    }
+}
+
+#[derive(ValueEnum, Debug, Clone, Copy, PartialEq, Eq)]
+enum DrafterArg {
+    /// Quotes the best-matching sentences verbatim; no model (the default).
+    Extractive,
+    /// A quantized GGUF model on this machine's CPU (see --llm).
+    Local,
+    /// An OpenAI-compatible chat endpoint (see --remote-url, --remote-model).
+    Remote,
+}
+
+/// Who writes the draft. Whatever writes it, every sentence goes through
+/// the verifier; a model draft with no supported sentence falls back to the
+/// extractive answer, and says so.
+#[derive(Args, Debug, Clone)]
+struct DraftArgs {
+    /// Who writes the draft.
+    #[arg(long, value_enum, default_value_t = DrafterArg::Extractive, env = "ONRECORD_DRAFTER")]
+    drafter: DrafterArg,
+    /// Local model for `--drafter local` and `--rewrite`: `auto` (the default
+    /// SmolLM2-135M-Instruct from the models folder or the hub cache), a
+    /// .gguf file, a folder holding one, or a repository id already pulled.
+    /// Llama-family, Qwen2 and Qwen3 files are supported.
+    #[arg(
+        long,
+        env = "ONRECORD_LLM",
+        default_value = "auto",
+        value_name = "auto|FILE|DIR"
+    )]
+    llm: LlmChoice,
+    /// Base URL of an OpenAI-compatible endpoint, such as http://localhost:8080/v1.
+    #[arg(long, env = "ONRECORD_REMOTE_URL", value_name = "URL")]
+    remote_url: Option<String>,
+    /// Model name the endpoint knows.
+    #[arg(long, env = "ONRECORD_REMOTE_MODEL", value_name = "NAME")]
+    remote_model: Option<String>,
+    /// Environment variable holding the endpoint's API key (never printed or logged).
+    #[arg(long, default_value = DEFAULT_KEY_ENV, value_name = "VAR")]
+    remote_key_env: String,
+    /// Longest wait for the endpoint's whole reply, in seconds.
+    #[arg(long, default_value_t = 300.0, value_name = "SECONDS")]
+    remote_timeout: f64,
+    /// Ask the endpoint for one reply instead of a stream.
+    #[arg(long)]
+    no_stream: bool,
+    /// Sampling temperature; 0 (the default) always picks the likeliest token.
+    #[arg(long, default_value_t = 0.0, value_name = "T")]
+    temperature: f64,
+    /// Seed of the sampler, so a non-zero temperature is repeatable.
+    #[arg(long, default_value_t = GenOptions::default().seed, value_name = "N")]
+    seed: u64,
+    /// Most tokens the model may write.
+    #[arg(long, default_value_t = GenOptions::default().max_tokens, value_name = "N")]
+    max_tokens: usize,
+    /// Most excerpts shown to the model.
+    #[arg(long, default_value_t = ModelDraftConfig::default().max_excerpts, value_name = "N")]
+    excerpts: usize,
+    /// Have the model propose up to three more search queries; their results
+    /// are fused with the question's before drafting.
+    #[arg(long)]
+    rewrite: bool,
+}
+
+impl DraftArgs {
+    fn gen_options(&self) -> Result<GenOptions> {
+        if !(self.temperature.is_finite() && self.temperature >= 0.0) {
+            bail!("--temperature must be 0 or more (got {})", self.temperature);
+        }
+        if self.max_tokens == 0 {
+            bail!("--max-tokens must be at least 1");
+        }
+        Ok(GenOptions {
+            max_tokens: self.max_tokens,
+            temperature: self.temperature,
+            seed: self.seed,
+            ..GenOptions::default()
+        })
+    }
+
+    fn wants_model(&self) -> bool {
+        self.drafter != DrafterArg::Extractive || self.rewrite
+    }
+
+    /// The model to prompt: the remote endpoint for `--drafter remote` (or
+    /// for `--rewrite` when a URL is given), else the local model.
+    fn generator(&self, quiet: bool) -> Result<Arc<dyn Generator>> {
+        let remote = self.drafter == DrafterArg::Remote
+            || (self.drafter == DrafterArg::Extractive && self.remote_url.is_some());
+        if remote {
+            let Some(url) = &self.remote_url else {
+                bail!(
+                    "--drafter remote needs --remote-url (or ONRECORD_REMOTE_URL), such as http://localhost:8080/v1"
+                );
+            };
+            let Some(model) = &self.remote_model else {
+                bail!(
+                    "--drafter remote needs --remote-model (or ONRECORD_REMOTE_MODEL): the model name the endpoint knows"
+                );
+            };
+            if !(self.remote_timeout.is_finite() && self.remote_timeout > 0.0) {
+                bail!("--remote-timeout must be a positive number of seconds");
+            }
+            let mut cfg = RemoteConfig::new(url.clone(), model.clone());
+            cfg.key_env = self.remote_key_env.clone();
+            cfg.timeout = std::time::Duration::from_secs_f64(self.remote_timeout);
+            cfg.stream = !self.no_stream;
+            return Ok(Arc::new(RemoteModel::new(cfg)?));
+        }
+        let path = onrecord::llm::resolve(&self.llm)?;
+        if !quiet {
+            eprintln!("Loading {} ...", path.display());
+        }
+        let m = onrecord::llm::local::LocalModel::load(
+            &path,
+            Some(onrecord::llm::reencode_cache_dir()),
+        )?;
+        if !quiet {
+            eprintln!("Loaded {} in {:.1} s.", m.id(), m.load_secs);
+        }
+        Ok(Arc::new(m))
     }
 }
 
@@ -257,7 +382,10 @@ enum Command {
         /// Abstain unless a sentence scores at least this (0-1).
         #[arg(long, default_value_t = ExtractiveConfig::default().min_score)]
         min_score: f32,
-        /// Print the versioned answer record as JSON.
+        #[command(flatten)]
+        draft: DraftArgs,
+        /// Print the versioned answer record as JSON (with the model's raw
+        /// draft and the verdicts on it, when a model drafted).
         #[arg(long)]
         json: bool,
     },
@@ -297,7 +425,7 @@ enum Command {
         #[arg(short, long)]
         quiet: bool,
     },
-    /// Embedding models: where onrecord looks, and fetching one.
+    /// Models (embedding and drafting): where onrecord looks, and fetching one.
     #[command(subcommand)]
     Models(ModelsCommand),
     /// Speed measurements that print JSON, to set beside other tools.
@@ -311,8 +439,13 @@ enum ModelsCommand {
     /// (HF_HOME, else ~/.cache/huggingface). Afterwards pass the same id,
     /// or the folder printed, to --embedder.
     Pull {
-        /// Repository id, such as sentence-transformers/all-MiniLM-L6-v2.
+        /// Repository id, such as sentence-transformers/all-MiniLM-L6-v2 or
+        /// HuggingFaceTB/SmolLM2-135M-Instruct-GGUF.
         repo_id: String,
+        /// For a repository of GGUF files: which one (default: the Q8_0 file,
+        /// else the first).
+        #[arg(long, value_name = "NAME.gguf")]
+        file: Option<String>,
         #[arg(long)]
         json: bool,
     },
@@ -476,6 +609,7 @@ pub fn run() -> Result<ExitCode> {
             k,
             max_sentences,
             min_score,
+            draft,
             json,
         } => {
             let opts = retrieval.resolve()?;
@@ -485,7 +619,11 @@ pub fn run() -> Result<ExitCode> {
                 min_score,
                 ..Default::default()
             };
-            let a = ask_one(&idx, &question, &filters.resolve(), k, cfg)?;
+            let a = if draft.wants_model() {
+                ask_with_model(&idx, &question, &filters.resolve(), k, cfg, &draft, json)?
+            } else {
+                ask_one(&idx, &question, &filters.resolve(), k, cfg)?
+            };
             print_answer(&a, json)?;
             Ok(ExitCode::SUCCESS)
         }
@@ -505,8 +643,34 @@ pub fn run() -> Result<ExitCode> {
             !quiet && !json && std::io::stderr().is_terminal(),
             json,
         ),
-        Command::Models(ModelsCommand::Pull { repo_id, json }) => {
-            let dir = embed::hub::pull(&repo_id, !json && std::io::stderr().is_terminal())?;
+        Command::Models(ModelsCommand::Pull {
+            repo_id,
+            file,
+            json,
+        }) => {
+            let dir = embed::hub::pull(
+                &repo_id,
+                file.as_deref(),
+                !json && std::io::stderr().is_terminal(),
+            )?;
+            if dir.is_file() {
+                let m = onrecord::llm::local::LocalModel::load(
+                    &dir,
+                    Some(onrecord::llm::reencode_cache_dir()),
+                )?;
+                if json {
+                    print_json(
+                        &serde_json::json!({"repo_id": repo_id, "file": dir, "model": m.id()}),
+                    )?;
+                } else {
+                    println!(
+                        "{repo_id}: {} (model {})\nUse it with: --drafter local --llm {repo_id}",
+                        dir.display(),
+                        m.id()
+                    );
+                }
+                return Ok(ExitCode::SUCCESS);
+            }
             let e = embed::bert::BertEmbedder::load(&dir)?;
             if json {
                 print_json(
@@ -776,6 +940,11 @@ fn cmd_models_list(choice: &EmbedderChoice, json: bool) -> Result<ExitCode> {
             "looked_in": candidates.iter().map(|(p, ok)| serde_json::json!({"dir": p, "present": ok})).collect::<Vec<_>>(),
             "embedder": active.as_ref().map(|(id, dim)| serde_json::json!({"id": id, "dim": dim})),
             "note": r.note,
+            "drafting_model": {
+                "default_model": onrecord::llm::DEFAULT_LLM,
+                "looked_in": onrecord::llm::default_llm_candidates(),
+                "file": onrecord::llm::resolve(&LlmChoice::Auto).ok(),
+            },
         }))?;
         return Ok(ExitCode::SUCCESS);
     }
@@ -786,6 +955,17 @@ fn cmd_models_list(choice: &EmbedderChoice, json: bool) -> Result<ExitCode> {
             if *ok { "found  " } else { "missing" },
             p.display()
         );
+    }
+    println!(
+        "Default drafting model {} (for --drafter local) is looked for in:",
+        onrecord::llm::DEFAULT_LLM
+    );
+    for p in onrecord::llm::default_llm_candidates() {
+        println!("  {}", p.display());
+    }
+    match onrecord::llm::resolve(&LlmChoice::Auto) {
+        Ok(f) => println!("  found: {}", f.display()),
+        Err(e) => println!("  not found: {e}"),
     }
     match active {
         Some((id, dim)) => println!("Embedder in use: {id} ({dim} dimensions)"),
@@ -815,6 +995,65 @@ fn ask_one(
         serde_json::to_value(cfg)?,
         &RulesJudge::default(),
     )?)
+}
+
+/// Ask with a language model drafting and/or rewriting the query. The draft
+/// streams to standard error as it is written (unless `json`); the verified
+/// answer follows on standard output.
+fn ask_with_model(
+    idx: &Index,
+    question: &str,
+    filters: &Filters,
+    k: usize,
+    cfg: ExtractiveConfig,
+    args: &DraftArgs,
+    json: bool,
+) -> Result<AnswerRecord> {
+    let gen_opts = args.gen_options()?;
+    let model = args.generator(json)?;
+    let extractive = Extractive::new(cfg);
+    let model_cfg = ModelDraftConfig {
+        max_excerpts: args.excerpts.max(1),
+        generation: gen_opts,
+        ..ModelDraftConfig::default()
+    };
+    let mut model_drafter = ModelDrafter::new(model.clone(), model_cfg.clone());
+    let show = !json;
+    if show {
+        let started = std::sync::atomic::AtomicBool::new(false);
+        let name = model.id();
+        model_drafter.on_text = Some(Box::new(move |piece: &str| {
+            let mut err = std::io::stderr().lock();
+            if !started.swap(true, std::sync::atomic::Ordering::Relaxed) {
+                let _ = writeln!(err, "Draft by {name} (not yet verified):");
+            }
+            let _ = write!(err, "{piece}");
+            let _ = err.flush();
+        }));
+    }
+    let (drafter, settings): (&dyn Drafter, serde_json::Value) =
+        if args.drafter == DrafterArg::Extractive {
+            (&extractive, serde_json::to_value(cfg)?)
+        } else {
+            (&model_drafter, serde_json::to_value(model_cfg)?)
+        };
+    let a = answer::ask_with(
+        idx,
+        question,
+        answer::AskPlan {
+            filters,
+            k,
+            drafter,
+            drafter_settings: settings,
+            judge: &RulesJudge::default(),
+            fallback: Some(&extractive),
+            rewrite: args.rewrite.then_some(model.as_ref()),
+        },
+    )?;
+    if show && a.draft.is_some() {
+        eprintln!("\n");
+    }
+    Ok(a)
 }
 
 /// Print a value as pretty JSON on standard output.

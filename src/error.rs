@@ -55,6 +55,9 @@ pub enum Error {
     #[error("vector index {path}: {message}")]
     Vectors { path: PathBuf, message: String },
 
+    #[error("endpoint {endpoint}: {message}")]
+    Remote { endpoint: String, message: String },
+
     #[error("{0}")]
     Invalid(String),
 }

@@ -3,7 +3,7 @@
 //!
 //! Data flow: `ingest` (extract → chunk → store + BM25 → embed + vectors) →
 //! `retrieve` (BM25, dense, fused) →
-//! `draft` → `verify` → `answer` (emit). See DEVELOPERS.md for the code map
+//! `draft` (extractive, or a language model in `llm` prompted from `prompt`) → `verify` → `answer` (emit). See DEVELOPERS.md for the code map
 //! and the invariants each module keeps.
 
 pub mod answer;
@@ -17,7 +17,9 @@ pub mod eval;
 pub mod extract;
 pub mod fuse;
 pub mod ingest;
+pub mod llm;
 pub mod manifest;
+pub mod prompt;
 pub mod retrieve;
 pub mod segment;
 pub mod store;

@@ -36,6 +36,8 @@ pub struct DraftSentence {
 pub struct Draft {
     pub sentences: Vec<DraftSentence>,
     pub abstain: Option<String>,
+    /// A language model's own text and costs, when a model wrote the draft.
+    pub model: Option<crate::draft::ModelDraft>,
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -81,6 +83,8 @@ pub struct Located {
     pub end_char: usize,
     /// The chunk's own text for the span, white space folded.
     pub page_text: String,
+    /// Byte range of the span in the chunk's text.
+    pub bytes: std::ops::Range<usize>,
 }
 
 /// Find `quote` in the chunk after normalising white space, quote and dash
@@ -101,7 +105,8 @@ pub fn locate(quote: &str, chunk: &StoredChunk) -> Option<Located> {
         start_char,
         end_page,
         end_char,
-        page_text: fold_ws(&chunk.text[r]),
+        page_text: fold_ws(&chunk.text[r.clone()]),
+        bytes: r,
     })
 }
 
@@ -197,6 +202,17 @@ fn verify_sentence(
                 citations,
             );
         };
+        if let Some(context) = addressed_to_model(chunk, &loc.bytes) {
+            return struck(
+                s,
+                format!(
+                    "the quoted words are an instruction aimed at an AI model, written inside \
+                     the record (\u{201C}{}\u{201D}), not a statement the record makes",
+                    crate::text::fold_ws(&context)
+                ),
+                citations,
+            );
+        }
         citations.push(Citation {
             chunk_id: chunk.id,
             doc_id: chunk.doc_id.clone(),
@@ -224,6 +240,40 @@ fn verify_sentence(
         confidence: j.confidence,
         citations,
     }
+}
+
+static INSTRUCTION: LazyLock<Vec<Regex>> = LazyLock::new(|| {
+    [
+        // "Ignore the excerpts", "disregard all previous instructions".
+        r"(?i)\b(?:ignore|disregard|forget|override)\b[^.!?\n]{0,60}\b(?:excerpts?|instructions?|prompts?|context|rules|everything above|previous)\b",
+        // An imperative to assert something: "... and state that ...".
+        r"(?i)(?:^|[.;:!?]\s+|\b(?:and|then|instead|now)\s+)(?:state|say|write|answer|respond|reply|claim)\s+(?:that|with|only)\b",
+        r"(?i)\b(?:as an ai|system prompt|new instructions|language model,|assistant:)",
+    ]
+    .iter()
+    .map(|p| Regex::new(p).unwrap())
+    .collect()
+});
+
+/// The sentence(s) of `chunk` around `bytes`, if they read as instructions
+/// aimed at an AI model (prompt injection planted in a record). Quoting
+/// such text would let a document dictate the answer.
+pub fn addressed_to_model(chunk: &StoredChunk, bytes: &std::ops::Range<usize>) -> Option<String> {
+    let spans = crate::segment::sentence_spans(&chunk.text);
+    let around: Vec<&str> = spans
+        .iter()
+        .filter(|r| r.start < bytes.end && bytes.start < r.end)
+        .map(|r| &chunk.text[r.clone()])
+        .collect();
+    let context = if around.is_empty() {
+        chunk.text[bytes.clone()].to_string()
+    } else {
+        around.join(" ")
+    };
+    INSTRUCTION
+        .iter()
+        .any(|re| re.is_match(&context))
+        .then_some(context)
 }
 
 /// The rules judge (v1): numbers, amounts, percentages, dates and
@@ -722,6 +772,7 @@ mod tests {
                 }],
             }],
             abstain: None,
+            model: None,
         };
         let v = verify(&draft, &chunks, &RulesJudge::default(), &|_, _| None);
         assert_eq!(v[0].verdict, Verdict::Struck);

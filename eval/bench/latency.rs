@@ -13,6 +13,7 @@
 //! a ratio to that target.
 
 use onrecord::embed::{Embedder, normalise};
+use onrecord::eval::peak_rss_mib;
 use onrecord::ingest::{MemDoc, ingest_docs};
 use onrecord::retrieve::{Index, RetrieverKind, SearchOptions};
 use onrecord::types::{DocId, DocMeta, Filters};
@@ -86,20 +87,6 @@ fn synthetic_text(i: u64, words: usize) -> String {
         out.push_str(&format!("w{rank} "));
     }
     out
-}
-
-fn peak_rss_mib() -> f64 {
-    std::fs::read_to_string("/proc/self/status")
-        .ok()
-        .and_then(|s| {
-            s.lines().find(|l| l.starts_with("VmHWM:")).and_then(|l| {
-                l.split_whitespace()
-                    .nth(1)
-                    .and_then(|v| v.parse::<f64>().ok())
-            })
-        })
-        .map(|kb| kb / 1024.0)
-        .unwrap_or(f64::NAN)
 }
 
 fn quantile(v: &mut [f64], q: f64) -> f64 {

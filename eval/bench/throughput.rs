@@ -9,6 +9,7 @@
 //!   search latency relative to a naive scan over the same chunks;
 //! - peak resident memory.
 
+use onrecord::eval::peak_rss_mib;
 use onrecord::extract::pdf::{PdfRoute, extract_pages};
 use onrecord::extract::{ExtractOptions, Kind, extract};
 use onrecord::ingest::{IngestConfig, ingest_paths};
@@ -32,20 +33,6 @@ fn levenshtein(a: &[char], b: &[char]) -> usize {
         std::mem::swap(&mut prev, &mut cur);
     }
     prev[b.len()]
-}
-
-fn peak_rss_mib() -> f64 {
-    std::fs::read_to_string("/proc/self/status")
-        .ok()
-        .and_then(|s| {
-            s.lines().find(|l| l.starts_with("VmHWM:")).and_then(|l| {
-                l.split_whitespace()
-                    .nth(1)
-                    .and_then(|v| v.parse::<f64>().ok())
-            })
-        })
-        .map(|kb| kb / 1024.0)
-        .unwrap_or(f64::NAN)
 }
 
 fn pdf_routes(source: &Path, release: &Path) {

@@ -24,13 +24,69 @@ pub fn cached(repo_id: &str) -> Option<PathBuf> {
     super::is_model_dir(&dir).then_some(dir)
 }
 
-/// Download `repo_id` into the hub cache and return its snapshot folder.
-pub fn pull(repo_id: &str, progress: bool) -> Result<PathBuf> {
+/// The GGUF file of `repo_id` already in the hub cache (the 8-bit one when
+/// there are several).
+pub fn cached_gguf(repo_id: &str) -> Option<PathBuf> {
+    let cache = hf_hub::Cache::from_env();
+    let folder = format!("models--{}", repo_id.replace('/', "--"));
+    let snapshots = cache.path().join(folder).join("snapshots");
+    let mut found: Vec<PathBuf> = std::fs::read_dir(snapshots)
+        .ok()?
+        .filter_map(|e| e.ok())
+        .flat_map(|snap| std::fs::read_dir(snap.path()).into_iter().flatten())
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| {
+            p.extension()
+                .is_some_and(|x| x.eq_ignore_ascii_case("gguf"))
+        })
+        .collect();
+    found.sort_by_key(|p| !p.to_string_lossy().to_lowercase().contains("q8_0"));
+    found.into_iter().next()
+}
+
+/// Download a model from `repo_id` into the hub cache. A repository with
+/// `config.json`, `tokenizer.json` and `model.safetensors` is an embedding
+/// model and its folder is returned; otherwise one GGUF file is fetched
+/// (`file`, else the 8-bit one, else the first) and its path returned.
+pub fn pull(repo_id: &str, file: Option<&str>, progress: bool) -> Result<PathBuf> {
     let api = hf_hub::api::sync::ApiBuilder::from_env()
         .with_progress(progress)
         .build()
         .map_err(|e| model_err(Path::new(repo_id), e))?;
     let repo = api.model(repo_id.to_string());
+    let gguf = match file {
+        Some(f) => Some(f.to_string()),
+        None => {
+            let info = repo
+                .info()
+                .map_err(|e| model_err(Path::new(repo_id), format!("listing files: {e}")))?;
+            let names: Vec<String> = info.siblings.into_iter().map(|s| s.rfilename).collect();
+            if REQUIRED.iter().all(|r| names.iter().any(|n| n == r)) {
+                None
+            } else {
+                let mut ggufs: Vec<&String> = names
+                    .iter()
+                    .filter(|n| n.to_lowercase().ends_with(".gguf"))
+                    .collect();
+                ggufs.sort_by_key(|n| !n.to_lowercase().contains("q8_0"));
+                match ggufs.first() {
+                    Some(n) => Some((*n).clone()),
+                    None => {
+                        return Err(model_err(
+                            Path::new(repo_id),
+                            "the repository holds neither an embedding model \
+                             (config.json, tokenizer.json, model.safetensors) nor a .gguf file",
+                        ));
+                    }
+                }
+            }
+        }
+    };
+    if let Some(f) = gguf {
+        return repo
+            .get(&f)
+            .map_err(|e| model_err(Path::new(repo_id), format!("fetching {f}: {e}")));
+    }
     let mut dir = None;
     for f in REQUIRED {
         let p = repo

@@ -102,6 +102,7 @@ impl Drafter for Fixed {
                 })
                 .collect(),
             abstain: None,
+            model: None,
         })
     }
 }

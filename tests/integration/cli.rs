@@ -277,3 +277,104 @@ fn the_demo_command_uses_hybrid_when_the_model_is_present() {
         );
     }
 }
+
+/// `ask --drafter remote` end to end through the binary, against a loopback
+/// OpenAI-compatible server: the draft streams to standard error, the
+/// verified answer goes to standard output, and `--json` carries both the
+/// raw draft and the verdicts.
+#[test]
+fn ask_with_a_remote_drafter_streams_then_verifies() {
+    use crate::endpoint::{Reply, serve};
+    let src = tempfile::tempdir().unwrap();
+    let idx = tempfile::tempdir().unwrap();
+    write(
+        src.path(),
+        "minutes.txt",
+        "The board approved the dredging amendment of $1.4 million on 3 June 2020.",
+    );
+    let out = onrecord(
+        &["ingest", src.path().to_str().unwrap(), "--json"],
+        idx.path(),
+    );
+    assert!(out.status.success());
+    let draft = "The board approved $1.4 million for dredging. [1] \"approved the dredging amendment of $1.4 million\"\nThe board also bought a ferry.";
+    let pieces: Vec<String> = draft.split_inclusive(' ').map(str::to_string).collect();
+    let ep = serve(vec![Reply::Stream(pieces.clone()), Reply::Stream(pieces)]);
+    let args = |json: bool| {
+        let mut a = vec![
+            "ask",
+            "How much was the dredging amendment?",
+            "--drafter",
+            "remote",
+            "--remote-url",
+            ep.base_url.as_str(),
+            "--remote-model",
+            "test-model",
+        ];
+        if json {
+            a.push("--json");
+        }
+        a
+    };
+    let out = onrecord(&args(false), idx.path());
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let err = String::from_utf8(out.stderr).unwrap();
+    let text = String::from_utf8(out.stdout).unwrap();
+    assert!(
+        err.contains("Draft by test-model at") && err.contains("bought a ferry"),
+        "{err}"
+    );
+    assert!(
+        text.contains("The board approved $1.4 million for dredging. [1]"),
+        "{text}"
+    );
+    assert!(
+        text.contains("Struck by the verifier (1)") && text.contains("no citation"),
+        "{text}"
+    );
+    assert!(text.contains("Caution:"), "{text}");
+
+    let out = onrecord(&args(true), idx.path());
+    assert!(out.status.success());
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(v["draft"]["raw"], draft);
+    assert_eq!(v["sentences"][0]["verdict"], "supported");
+    assert_eq!(v["sentences"][1]["verdict"], "struck");
+    assert!(
+        v["config"]["drafter"]
+            .as_str()
+            .unwrap()
+            .starts_with("model:test-model")
+    );
+    let schema: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string(
+            std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("eval/answer-record.schema.json"),
+        )
+        .unwrap(),
+    )
+    .unwrap();
+    let problems = crate::support::schema_problems(&v, &schema, "$");
+    assert!(problems.is_empty(), "{problems:#?}");
+}
+
+#[test]
+fn a_remote_drafter_without_a_url_says_what_is_missing() {
+    let idx = tempfile::tempdir().unwrap();
+    let src = tempfile::tempdir().unwrap();
+    write(src.path(), "a.txt", "The board met on 3 June 2020.");
+    onrecord(&["ingest", src.path().to_str().unwrap()], idx.path());
+    let out = Command::new(env!("CARGO_BIN_EXE_onrecord"))
+        .args(["ask", "When did the board meet?", "--drafter", "remote"])
+        .env("ONRECORD_INDEX", idx.path())
+        .env_remove("ONRECORD_REMOTE_URL")
+        .env_remove("ONRECORD_REMOTE_MODEL")
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(1));
+    let err = String::from_utf8(out.stderr).unwrap();
+    assert!(err.contains("--drafter remote needs --remote-url"), "{err}");
+}

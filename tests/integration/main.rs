@@ -4,6 +4,8 @@
 mod answers;
 mod cli;
 mod demo;
+mod drafting;
+mod endpoint;
 mod ingest;
 mod open_data;
 mod retrieval;

@@ -187,3 +187,41 @@ impl onrecord::embed::Embedder for HashEmbedder {
             .collect())
     }
 }
+
+/// The default drafting model (SmolLM2-135M-Instruct GGUF), or None with a
+/// clear message when it is not on this machine. Under CI=true its absence
+/// is a failure: CI runs `eval/models/fetch` first.
+pub fn llm_file() -> Option<PathBuf> {
+    match onrecord::llm::resolve(&onrecord::llm::LlmChoice::Auto) {
+        Ok(p) => Some(p),
+        Err(e) => {
+            let msg = format!("drafting model absent ({e}); run eval/models/fetch");
+            if std::env::var("CI").is_ok_and(|v| v == "true") {
+                panic!("{msg} (required under CI=true)");
+            }
+            eprintln!("{msg}; check skipped");
+            None
+        }
+    }
+}
+
+/// The demo release rendered and ingested once per test run (BM25 only),
+/// in a folder that lives as long as the test binary.
+pub fn demo_index() -> &'static Path {
+    use std::sync::OnceLock;
+    static DIR: OnceLock<PathBuf> = OnceLock::new();
+    DIR.get_or_init(|| {
+        let source = Path::new(env!("CARGO_MANIFEST_DIR")).join("eval/demo");
+        let work = tempfile::tempdir().unwrap().keep();
+        let release = work.join("release");
+        let manifest = onrecord::demo::build(&source, &release).unwrap();
+        let cfg = IngestConfig {
+            manifest: onrecord::manifest::Manifest::load(&manifest).unwrap(),
+            ..Default::default()
+        };
+        let idx = work.join("index");
+        let (report, diags) = ingest_paths(&idx, std::slice::from_ref(&release), &cfg).unwrap();
+        assert_eq!(report.failed, 0, "{diags:#?}");
+        idx
+    })
+}

@@ -17,6 +17,9 @@ use crate::text::{content_terms, fold_ws, term_spans};
 use crate::verify::{Draft, DraftCitation, DraftSentence};
 use std::collections::{HashMap, HashSet};
 
+pub mod model;
+pub use model::{ModelDraft, ModelDraftConfig, ModelDrafter};
+
 /// Everything a drafter may look at.
 pub struct DraftRequest<'a> {
     pub question: &'a str,
@@ -442,6 +445,7 @@ impl Drafter for Extractive {
             return Ok(Draft {
                 sentences: vec![],
                 abstain: Some(reason),
+                model: None,
             });
         }
         // Maximal marginal relevance over the candidates that still clear a
@@ -485,6 +489,7 @@ impl Drafter for Extractive {
                 })
                 .collect(),
             abstain: None,
+            model: None,
         })
     }
 }

@@ -1,0 +1,214 @@
+//! The model drafter: a language model (local or remote, any
+//! [`Generator`]) writes the answer from numbered, fenced excerpts, in the
+//! grammar `prompts/system.jinja` asks for; the parser turns its text into
+//! sentences with proposed citations. The verifier decides what survives.
+//!
+//! invariant: a citation marker is mapped only to an excerpt the model was
+//! shown; a marker outside that range is dropped, never guessed.
+
+use super::{DraftRequest, Drafter};
+use crate::chunk::PAGE_BREAK;
+use crate::error::Result;
+use crate::llm::{Finish, GenOptions, Generator};
+use crate::prompt::{self, Excerpt};
+use crate::verify::{Draft, DraftCitation, DraftSentence};
+use serde::{Deserialize, Serialize};
+
+/// Settings of the model drafter.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ModelDraftConfig {
+    /// Most excerpts shown to the model.
+    pub max_excerpts: usize,
+    /// Most prompt tokens, below the model's own window; excerpts are
+    /// trimmed to fit.
+    pub max_prompt_tokens: usize,
+    pub generation: GenOptions,
+}
+
+impl Default for ModelDraftConfig {
+    fn default() -> Self {
+        ModelDraftConfig {
+            max_excerpts: 5,
+            max_prompt_tokens: 2048,
+            generation: GenOptions::default(),
+        }
+    }
+}
+
+/// What the model wrote and what it cost, kept in the answer record.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ModelDraft {
+    pub model: String,
+    /// The model's text exactly as generated.
+    pub raw: String,
+    pub finish: Finish,
+    pub prompt_tokens: usize,
+    pub generated_tokens: usize,
+    pub prompt_secs: f64,
+    pub generate_secs: f64,
+    /// Excerpts shown to the model, and how many of them were cut to fit.
+    pub excerpts_shown: usize,
+    pub excerpts_trimmed: usize,
+    /// The model said the excerpts do not answer the question.
+    pub said_no_answer: bool,
+}
+
+/// Receives each new piece of a draft as it is generated.
+pub type TextSink = Box<dyn Fn(&str) + Send + Sync>;
+
+pub struct ModelDrafter {
+    pub generator: std::sync::Arc<dyn Generator>,
+    pub cfg: ModelDraftConfig,
+    /// Receives the draft as it is generated (for the terminal).
+    pub on_text: Option<TextSink>,
+}
+
+/// Cut `text` to about `tokens` tokens at a word boundary.
+fn cut_words(text: &str, tokens: usize, count: &dyn Fn(&str) -> usize) -> String {
+    let words: Vec<&str> = text.split(' ').collect();
+    let (mut lo, mut hi) = (0usize, words.len());
+    // Largest prefix of words that fits.
+    while lo < hi {
+        let mid = (lo + hi).div_ceil(2);
+        if count(&words[..mid].join(" ")) <= tokens {
+            lo = mid;
+        } else {
+            hi = mid - 1;
+        }
+    }
+    format!("{} …", words[..lo].join(" "))
+}
+
+impl ModelDrafter {
+    pub fn new(generator: std::sync::Arc<dyn Generator>, cfg: ModelDraftConfig) -> Self {
+        ModelDrafter {
+            generator,
+            cfg,
+            on_text: None,
+        }
+    }
+
+    /// The excerpts shown to the model for `req`, trimmed to the token
+    /// budget; returns (excerpts, how many were cut).
+    pub fn excerpts(&self, req: &DraftRequest<'_>) -> Result<(Vec<Excerpt>, usize)> {
+        let window = self.generator.context_window().unwrap_or(4096);
+        let budget = self
+            .cfg
+            .max_prompt_tokens
+            .min(window.saturating_sub(self.cfg.generation.max_tokens + 16));
+        let overhead: usize = prompt::answer_messages(req.question, &[])?
+            .iter()
+            .map(|m| self.generator.count_tokens(&m.content) + 8)
+            .sum();
+        let mut left = budget.saturating_sub(overhead);
+        let mut out = Vec::new();
+        let mut trimmed = 0;
+        for (i, r) in req.retrieved.iter().take(self.cfg.max_excerpts).enumerate() {
+            let c = &r.chunk;
+            let text = c.text.replace(PAGE_BREAK, "\n");
+            let head = format!(
+                "[{}] {} ({:?}), {}",
+                i + 1,
+                c.title,
+                c.date,
+                c.span.pages_label()
+            );
+            let cost = self.generator.count_tokens(&head) + 24;
+            if left <= cost + 48 {
+                break;
+            }
+            let body = self.generator.count_tokens(&text);
+            let text = if cost + body <= left {
+                left -= cost + body;
+                text
+            } else {
+                trimmed += 1;
+                let count = |s: &str| self.generator.count_tokens(s);
+                let t = cut_words(&text, left - cost, &count);
+                left = 0;
+                t
+            };
+            out.push(Excerpt {
+                n: i + 1,
+                title: c.title.clone(),
+                date: c.date.clone(),
+                pages: c.span.pages_label(),
+                text,
+            });
+            if left == 0 {
+                break;
+            }
+        }
+        Ok((out, trimmed))
+    }
+}
+
+impl Drafter for ModelDrafter {
+    fn name(&self) -> String {
+        format!("model:{}", self.generator.id())
+    }
+
+    fn draft(&self, req: &DraftRequest<'_>) -> Result<Draft> {
+        if req.retrieved.is_empty() {
+            return Ok(Draft {
+                sentences: vec![],
+                abstain: Some("no record matched the question".into()),
+                model: None,
+            });
+        }
+        let (excerpts, trimmed) = self.excerpts(req)?;
+        let messages = prompt::answer_messages(req.question, &excerpts)?;
+        let mut sink = |s: &str| {
+            if let Some(f) = &self.on_text {
+                f(s)
+            }
+        };
+        let opts = GenOptions {
+            cite_excerpts: excerpts.iter().map(|e| e.text.clone()).collect(),
+            ..self.cfg.generation.clone()
+        };
+        let g = self.generator.generate(&messages, &opts, &mut sink)?;
+        let parsed = prompt::parse_answer(&g.text);
+        let sentences: Vec<DraftSentence> = parsed
+            .sentences
+            .into_iter()
+            .map(|p| DraftSentence {
+                citations: p
+                    .cites
+                    .iter()
+                    .filter(|c| (1..=excerpts.len()).contains(&c.excerpt))
+                    .map(|c| DraftCitation {
+                        chunk_id: req.retrieved[c.excerpt - 1].chunk.id,
+                        // A marker without a quote claims the sentence
+                        // itself is the excerpt's wording.
+                        quote: c.quote.clone().unwrap_or_else(|| p.text.clone()),
+                    })
+                    .collect(),
+                text: p.text,
+            })
+            .collect();
+        let abstain = sentences.is_empty().then(|| {
+            if parsed.no_answer {
+                "the model found no answer in the excerpts".to_string()
+            } else {
+                "the model wrote nothing that could be read as a cited sentence".to_string()
+            }
+        });
+        Ok(Draft {
+            sentences,
+            abstain,
+            model: Some(ModelDraft {
+                model: self.generator.id(),
+                raw: g.text,
+                finish: g.finish,
+                prompt_tokens: g.prompt_tokens,
+                generated_tokens: g.generated_tokens,
+                prompt_secs: g.prompt_secs,
+                generate_secs: g.generate_secs,
+                excerpts_shown: excerpts.len(),
+                excerpts_trimmed: trimmed,
+                said_no_answer: parsed.no_answer,
+            }),
+        })
+    }
+}
