@@ -31,10 +31,23 @@ use std::time::Instant;
 static GLOBAL: mimalloc::MiMalloc = mimalloc::MiMalloc;
 
 const PROMPT_TOKENS: usize = 512;
+/// A drafting-sized prompt: the model drafter's default budget.
+const LONG_PROMPT_TOKENS: usize = 1536;
 const GEN_TOKENS: usize = 128;
 const TARGET_RATIO: f64 = 0.8;
 
 use onrecord::eval::peak_rss_mib;
+
+fn rss_mib() -> f64 {
+    std::fs::read_to_string("/proc/self/status")
+        .ok()
+        .and_then(|s| {
+            s.lines()
+                .find(|l| l.starts_with("VmRSS:"))
+                .and_then(|l| l.split_whitespace().nth(1)?.parse::<f64>().ok())
+        })
+        .map_or(f64::NAN, |kb| kb / 1024.0)
+}
 
 /// Best of three runs: (prompt tokens/s, generated tokens/s).
 fn speed(m: &LocalModel, ids: &[u32]) -> (f64, f64) {
@@ -120,9 +133,12 @@ fn first_verified(
         if first.is_some() || !text.contains('\n') {
             return;
         }
-        let line = text.lines().next().unwrap_or("");
-        let parsed = onrecord::prompt::parse_answer(line);
-        let Some(s) = parsed.sentences.first() else {
+        // The first complete line that reads as a sentence.
+        let complete = &text[..text.rfind('\n').unwrap_or(0)];
+        let Some((line, s)) = complete.lines().find_map(|l| {
+            let p = onrecord::prompt::parse_answer(l);
+            p.sentences.into_iter().next().map(|s| (l.to_string(), s))
+        }) else {
             return;
         };
         let draft = Draft {
@@ -180,6 +196,17 @@ fn rewrite_recall(index: &Index, model: &LocalModel) {
         .filter(|q: &Question| q.answerable)
         .collect();
     let (mut plain, mut rewritten, mut n_queries) = (0, 0, 0);
+    let (mut cited_plain, mut cited_rewritten) = (0, 0);
+    let fallback = onrecord::draft::Extractive::default();
+    let cited = |a: &onrecord::answer::AnswerRecord, q: &Question| {
+        a.supported().any(|s| {
+            s.citations.iter().any(|c| {
+                q.evidence
+                    .iter()
+                    .any(|e| e.doc == c.doc_id.0 && e.page == c.page)
+            })
+        })
+    };
     let hit = |rs: &[onrecord::retrieve::Retrieved], q: &Question| {
         rs.iter().any(|r| {
             q.evidence.iter().any(|e| {
@@ -196,6 +223,26 @@ fn rewrite_recall(index: &Index, model: &LocalModel) {
         let b = gather(index, &q.question, &extra, &Filters::default(), 10).unwrap();
         plain += hit(&a, q) as usize;
         rewritten += hit(&b, q) as usize;
+        for (rewrite, count) in [
+            (None, &mut cited_plain),
+            (Some(model as &dyn Generator), &mut cited_rewritten),
+        ] {
+            let a = onrecord::answer::ask_with(
+                index,
+                &q.question,
+                onrecord::answer::AskPlan {
+                    filters: &Filters::default(),
+                    k: 10,
+                    drafter: &fallback,
+                    drafter_settings: serde_json::Value::Null,
+                    judge: &RulesJudge::default(),
+                    fallback: None,
+                    rewrite,
+                },
+            )
+            .unwrap();
+            *count += cited(&a, q) as usize;
+        }
     }
     println!(
         "rewrite (demo, {} answerable questions, BM25, k=10): gold page retrieved {}/{} without, {}/{} with ({:.1} extra queries per question, {:.1} s per question)",
@@ -206,6 +253,11 @@ fn rewrite_recall(index: &Index, model: &LocalModel) {
         qs.len(),
         n_queries as f64 / qs.len() as f64,
         t0.elapsed().as_secs_f64() / qs.len() as f64
+    );
+    println!(
+        "rewrite, extractive answers: gold page cited {cited_plain}/{} without, {cited_rewritten}/{} with",
+        qs.len(),
+        qs.len()
     );
 }
 
@@ -230,9 +282,10 @@ fn main() {
         std::sync::Arc::new(LocalModel::load(&path, Some(cache.path().to_path_buf())).unwrap())
     };
     let cached_load = t0.elapsed().as_secs_f64();
+    let resident = rss_mib();
     let shipped = LocalModel::load(&path, None).unwrap();
     println!(
-        "load: {first_load:.2} s first (re-encoding to Q8_0 included), {cached_load:.2} s from the cache, {:.2} s as shipped",
+        "load: {first_load:.2} s first (re-encoding to Q8_0 included), {cached_load:.2} s from the cache, {:.2} s as shipped; resident after one load {resident:.0} MiB",
         shipped.load_secs
     );
 
@@ -246,25 +299,31 @@ fn main() {
         .map(|r| r.chunk.text.as_str())
         .collect::<Vec<_>>()
         .join("\n");
-    let mut ids = model
+    let long = model
         .format
         .encode(
             &model
                 .format
-                .render(&[onrecord::llm::ChatMessage::user(body)])
+                .render(&[onrecord::llm::ChatMessage::user(body.repeat(3))])
                 .unwrap(),
         )
         .unwrap();
-    ids.truncate(PROMPT_TOKENS);
+    let long: Vec<u32> = long[..LONG_PROMPT_TOKENS.min(long.len())].to_vec();
+    let ids: Vec<u32> = long[..PROMPT_TOKENS].to_vec();
 
     let (p8, g8) = speed(&model, &ids);
     let (p4, g4) = speed(&shipped, &ids);
+    let (pl, gl) = speed(&model, &long);
     println!("candle, re-encoded Q8_0: prompt {p8:.0} tokens/s, generation {g8:.1} tokens/s");
     println!("candle, Q4_1 as shipped: prompt {p4:.0} tokens/s, generation {g4:.1} tokens/s");
     println!(
         "re-encoding speed-up: prompt {:.2}x, generation {:.2}x",
         p8 / p4,
         g8 / g4
+    );
+    println!(
+        "candle, re-encoded Q8_0, {}-token prompt: prompt {pl:.0} tokens/s, generation {gl:.1} tokens/s",
+        long.len()
     );
 
     match std::env::var("ONRECORD_YARDSTICK_PYTHON") {
@@ -273,12 +332,13 @@ fn main() {
                 .unwrap()
                 .filter_map(|e| e.ok().map(|e| e.path()))
                 .find(|p| p.extension().is_some_and(|x| x == "gguf"));
-            for (label, file, ours) in [
-                ("Q8_0", q8, (p8, g8)),
-                ("Q4_1", Some(path.clone()), (p4, g4)),
+            for (label, file, ours, prompt) in [
+                ("Q8_0", q8.clone(), (p8, g8), &ids),
+                ("Q4_1", Some(path.clone()), (p4, g4), &ids),
+                ("Q8_0, long prompt", q8, (pl, gl), &long),
             ] {
                 let Some(file) = file else { continue };
-                match yardstick(&py, &file, &ids) {
+                match yardstick(&py, &file, prompt) {
                     Some((lp, lg)) => println!(
                         "llama.cpp {label}: prompt {lp:.0} tokens/s, generation {lg:.1} tokens/s; ours/theirs: prompt {:.2}, generation {:.2} (target {TARGET_RATIO})",
                         ours.0 / lp,

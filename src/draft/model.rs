@@ -29,7 +29,7 @@ impl Default for ModelDraftConfig {
     fn default() -> Self {
         ModelDraftConfig {
             max_excerpts: 5,
-            max_prompt_tokens: 2048,
+            max_prompt_tokens: 1536,
             generation: GenOptions::default(),
         }
     }
@@ -210,5 +210,104 @@ impl Drafter for ModelDrafter {
                 said_no_answer: parsed.no_answer,
             }),
         })
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::llm::{ChatMessage, Generation};
+    use crate::retrieve::Retrieved;
+    use crate::store::StoredChunk;
+    use crate::types::{ChunkId, ChunkSpan, DocId};
+
+    /// Counts one token per word; a small window.
+    struct Words(usize);
+
+    impl Generator for Words {
+        fn id(&self) -> String {
+            "words".into()
+        }
+        fn context_window(&self) -> Option<usize> {
+            Some(self.0)
+        }
+        fn count_tokens(&self, text: &str) -> usize {
+            text.split_whitespace().count()
+        }
+        fn generate(
+            &self,
+            _: &[ChatMessage],
+            _: &GenOptions,
+            _: &mut dyn FnMut(&str),
+        ) -> Result<Generation> {
+            unreachable!()
+        }
+    }
+
+    fn hit(i: u64, words: usize) -> Retrieved {
+        Retrieved {
+            chunk: StoredChunk {
+                id: ChunkId(i),
+                doc_id: DocId(format!("d{i}")),
+                title: format!("Doc {i}"),
+                organisation: None,
+                date: None,
+                seq: 0,
+                span: ChunkSpan {
+                    start_page: 1,
+                    start_char: 0,
+                    end_page: 1,
+                    end_char: 0,
+                },
+                text: vec!["word"; words].join(" "),
+                hash: String::new(),
+            },
+            retriever: "bm25",
+            rank: i as usize,
+            score: 1.0,
+            signals: vec![],
+        }
+    }
+
+    #[test]
+    fn excerpts_are_trimmed_to_fit_the_window_with_room_for_the_answer() {
+        let hits: Vec<Retrieved> = (1..=5).map(|i| hit(i, 300)).collect();
+        let req = DraftRequest {
+            question: "What happened?",
+            retrieved: &hits,
+            query_terms: &[],
+        };
+        for window in [1200usize, 2000, 8000] {
+            let g = Words(window);
+            let mut cfg = ModelDraftConfig::default();
+            cfg.generation.max_tokens = 200;
+            let d = ModelDrafter::new(std::sync::Arc::new(g), cfg.clone());
+            let (ex, trimmed) = d.excerpts(&req).unwrap();
+            let prompt: usize = prompt::answer_messages(req.question, &ex)
+                .unwrap()
+                .iter()
+                .map(|m| m.content.split_whitespace().count())
+                .sum();
+            let budget = cfg.max_prompt_tokens.min(window - 200 - 16);
+            assert!(
+                prompt <= budget,
+                "window {window}: prompt {prompt} > {budget}"
+            );
+            assert!(!ex.is_empty());
+            // Excerpts keep their rank order and numbering.
+            assert!(
+                ex.iter()
+                    .enumerate()
+                    .all(|(i, e)| e.n == i + 1 && e.title == format!("Doc {}", i + 1))
+            );
+            if window == 1200 {
+                assert!(
+                    trimmed == 1 && ex.len() < 5,
+                    "{} excerpts, {trimmed} trimmed",
+                    ex.len()
+                );
+                assert!(ex.last().unwrap().text.ends_with(" …"));
+            }
+        }
     }
 }

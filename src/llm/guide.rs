@@ -37,6 +37,8 @@ pub enum Step {
     Stop,
 }
 
+/// A sentence this long without a citation gets one.
+pub const SENTENCE_MAX_WORDS: usize = 60;
 /// Most citations after one sentence.
 pub const MAX_CITES_PER_LINE: usize = 2;
 /// Shortest quote, in words, the model may close.
@@ -122,6 +124,7 @@ impl CiteGuide {
 
     /// Whether `piece` may follow the quote so far: the quote stays a run
     /// of the excerpt's text, or `piece` closes a quote of two words or more.
+    #[cfg(test)]
     fn fits_quote(&self, piece: &str) -> bool {
         if piece.is_empty() || piece.contains('\n') {
             return false;
@@ -167,14 +170,7 @@ impl CiteGuide {
                 true
             }
             Stage::Quote => {
-                let allowed: Vec<u32> = texts
-                    .iter()
-                    .enumerate()
-                    .filter(|(id, t)| {
-                        logits.get(*id).is_some_and(|l| l.is_finite()) && self.fits_quote(t)
-                    })
-                    .map(|(id, _)| id as u32)
-                    .collect();
+                let allowed = self.quote_continuations(texts);
                 if allowed.is_empty() {
                     return false;
                 }
@@ -182,6 +178,65 @@ impl CiteGuide {
                 true
             }
         }
+    }
+
+    /// Token ids that [`fits_quote`](Self::fits_quote) accepts, found by
+    /// comparing each token's text with the excerpt at the places the quote
+    /// so far ends (rather than searching the excerpt per token).
+    fn quote_continuations(&self, texts: &[String]) -> Vec<u32> {
+        let Some(src) = self.quoting.and_then(|i| self.sources.get(i)) else {
+            return (0..texts.len() as u32).collect();
+        };
+        let word = |c: Option<char>| c.is_some_and(char::is_alphanumeric);
+        let q = squash(&self.quote);
+        let q = q.trim_start();
+        let trailing_space = self.quote.ends_with(char::is_whitespace);
+        // Where the quote so far ends in the excerpt (word starts when empty).
+        let ends: Vec<usize> = if q.is_empty() {
+            src.char_indices()
+                .filter(|(i, c)| !c.is_whitespace() && !word(src[..*i].chars().next_back()))
+                .map(|(i, _)| i)
+                .collect()
+        } else {
+            src.match_indices(q)
+                .filter(|(i, _)| !word(src[..*i].chars().next_back()))
+                .map(|(i, m)| i + m.len())
+                .collect()
+        };
+        let words = q.split_whitespace().count();
+        let mut out = Vec::new();
+        for (id, t) in texts.iter().enumerate() {
+            if t.is_empty() || t.contains('\n') {
+                continue;
+            }
+            let lead = t.starts_with(char::is_whitespace);
+            if lead && (q.is_empty() || trailing_space) {
+                continue;
+            }
+            // Squash only what needs it; most tokens are " word" or "word".
+            let needs =
+                t.contains(['\t', '\r']) || t.contains("  ") || t.ends_with(' ') && t.len() > 1;
+            let t: std::borrow::Cow<str> = if needs {
+                std::borrow::Cow::Owned(squash(t))
+            } else {
+                std::borrow::Cow::Borrowed(t.as_str())
+            };
+            let ok = if let Some(before) = t.split('"').next().filter(|_| t.contains('"')) {
+                let extra = before.split_whitespace().count();
+                words + extra >= QUOTE_MIN_WORDS
+                    && ends.iter().any(|&e| {
+                        src[e..].starts_with(before)
+                            && !word(src[e + before.len()..].chars().next())
+                            && !before.ends_with(' ')
+                    })
+            } else {
+                ends.iter().any(|&e| src[e..].starts_with(&*t))
+            };
+            if ok {
+                out.push(id as u32);
+            }
+        }
+        out
     }
 
     /// The tokens that close the quote now (when `mask` found no way on).
@@ -255,7 +310,12 @@ impl CiteGuide {
                     self.stage = Stage::Number;
                     return Step::Force(self.open.clone());
                 }
-                let needs_cite = ends_line
+                // A sentence ends at a line break, at the end of the turn,
+                // at a full stop followed by a space, or when it runs on.
+                let sentence_ends = ends_line
+                    || bare.ends_with(['.', '!', '?']) && piece.starts_with(char::is_whitespace)
+                    || bare.split_whitespace().count() >= SENTENCE_MAX_WORDS;
+                let needs_cite = sentence_ends
                     && bare.chars().filter(|c| c.is_alphanumeric()).count() >= 3
                     && !bare.contains('[')
                     && !bare
@@ -328,6 +388,52 @@ mod tests {
         assert!(!g.fits_quote("\""));
         g.quote = "closed to vehicles".into();
         assert!(g.fits_quote("\"."));
+        // The fast scan agrees with the plain check, token by token.
+        let vocab: Vec<String> = [
+            "The",
+            " ramp",
+            "ramp",
+            " was",
+            " closed",
+            "closed",
+            " to",
+            "\"",
+            "\".",
+            " vehicles",
+            "veh",
+            "icles",
+            " on",
+            " 14",
+            " March",
+            " 2022",
+            ".",
+            " cars",
+            "amp",
+            " ",
+            "\n",
+            "",
+            " was closed",
+            "  closed",
+        ]
+        .map(String::from)
+        .to_vec();
+        for quote in [
+            "",
+            "The",
+            "The ramp",
+            "The ramp ",
+            "The ramp was",
+            "closed to",
+            "closed to veh",
+            "vehicles on 14",
+        ] {
+            g.quote = quote.into();
+            let fast = g.quote_continuations(&vocab);
+            let slow: Vec<u32> = (0..vocab.len() as u32)
+                .filter(|&i| g.fits_quote(&vocab[i as usize]))
+                .collect();
+            assert_eq!(fast, slow, "after {quote:?}");
+        }
         // Masking over a vocabulary keeps only verbatim continuations.
         let texts: Vec<String> = [" vehicles", " cars", "\"", " on"]
             .map(String::from)
@@ -352,6 +458,17 @@ mod tests {
             Step::Force(vec![1, 2])
         );
         assert_eq!(g.stage, Stage::Number);
+        g.stage = Stage::Free;
+        // So does a full stop followed by a space, and a run-on sentence.
+        g.stage = Stage::Free;
+        assert_eq!(
+            g.step("The ramp closed.", 99, " He", false),
+            Step::Force(vec![1, 2])
+        );
+        g.stage = Stage::Free;
+        assert_eq!(g.step("It cost $4.1", 99, " million", false), Step::Accept);
+        let long = "word ".repeat(SENTENCE_MAX_WORDS);
+        assert_eq!(g.step(&long, 99, " more", false), Step::Force(vec![1, 2]));
         g.stage = Stage::Free;
         // The model opening a bracket itself is taken over the same way.
         assert_eq!(

@@ -103,9 +103,20 @@ impl RepeatGuard {
 impl LocalModel {
     /// Load a GGUF file; slow tensor types are re-encoded once into `reencode_cache`.
     pub fn load(path: &Path, reencode_cache: Option<PathBuf>) -> Result<LocalModel> {
+        Self::load_with(
+            path,
+            &LoadOptions {
+                reencode_cache,
+                prompt_f32_budget: super::weights::PROMPT_F32_BUDGET,
+            },
+        )
+    }
+
+    /// Load with explicit options.
+    pub fn load_with(path: &Path, opts: &LoadOptions) -> Result<LocalModel> {
         let t0 = Instant::now();
         let format = ChatFormat::from_gguf(path)?;
-        let weights = Weights::load(path, &LoadOptions { reencode_cache })?;
+        let weights = Weights::load(path, opts)?;
         let name = path
             .file_stem()
             .map(|s| s.to_string_lossy().into_owned())
@@ -138,6 +149,15 @@ impl LocalModel {
             logits = w.forward(&[next], ids.len() + i)?;
         }
         Ok((prompt, t1.elapsed().as_secs_f64()))
+    }
+
+    /// The file the weights were read from (the re-encoded copy, if any).
+    pub fn loaded_from(&self) -> PathBuf {
+        self.weights
+            .lock()
+            .unwrap_or_else(|p| p.into_inner())
+            .loaded_from
+            .clone()
     }
 
     /// Logits for the next token after `ids` (a fresh sequence).

@@ -13,6 +13,7 @@
 
 pub mod chat;
 pub mod guide;
+pub mod llama;
 pub mod local;
 pub mod remote;
 pub mod weights;

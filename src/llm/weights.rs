@@ -38,6 +38,9 @@ impl Arch {
 }
 
 enum Net {
+    /// Dense llama-family: our decoder with f32 prompt weights.
+    Dense(super::llama::Llama),
+    /// Llama-family with experts: candle-transformers' implementation.
     Llama(quantized_llama::ModelWeights),
     Qwen2(quantized_qwen2::ModelWeights),
     Qwen3(quantized_qwen3::ModelWeights),
@@ -55,6 +58,8 @@ pub struct Weights {
     pub loaded_from: PathBuf,
     /// True when a slow tensor type was re-encoded (now or earlier).
     pub reencoded: bool,
+    /// True when prompts run through f32 copies of the weights.
+    pub prompt_f32: bool,
     device: Device,
 }
 
@@ -151,7 +156,14 @@ pub fn reencode(source: &Path, dest: &Path) -> Result<()> {
 pub struct LoadOptions {
     /// Folder for re-encoded copies; `None` loads the file as it is.
     pub reencode_cache: Option<PathBuf>,
+    /// Most bytes of f32 weight copies made to read prompts faster (dense
+    /// llama-family models only); 0 turns them off.
+    pub prompt_f32_budget: usize,
 }
+
+/// Default for [`LoadOptions::prompt_f32_budget`]: enough for models of up
+/// to about 250M parameters (the default model needs about 0.4 GiB).
+pub const PROMPT_F32_BUDGET: usize = 1 << 30;
 
 impl Weights {
     /// Load a GGUF file, re-encoding slow tensor types once if asked.
@@ -203,12 +215,18 @@ impl Weights {
             .unwrap_or(2048) as usize;
         // candle's llama precomputes rotary tables for MAX_SEQ_LEN positions.
         let context = match arch {
-            Arch::Llama => trained.min(quantized_llama::MAX_SEQ_LEN),
+            Arch::Llama => trained
+                .min(quantized_llama::MAX_SEQ_LEN)
+                .min(super::llama::MAX_SEQ_LEN),
             _ => trained,
         };
         let metadata = ct.metadata.clone();
         let device = Device::Cpu;
         let net = match arch {
+            Arch::Llama if super::llama::Llama::handles(&ct) => Net::Dense(
+                super::llama::Llama::from_gguf(ct, &mut f, opts.prompt_f32_budget)
+                    .map_err(|e| model_err(path, e))?,
+            ),
             Arch::Llama => Net::Llama(
                 quantized_llama::ModelWeights::from_gguf(ct, &mut f, &device)
                     .map_err(|e| model_err(path, e))?,
@@ -222,7 +240,9 @@ impl Weights {
                     .map_err(|e| model_err(path, e))?,
             ),
         };
+        let prompt_f32 = matches!(&net, Net::Dense(m) if m.prefill_f32);
         Ok(Weights {
+            prompt_f32,
             net,
             arch,
             context,
@@ -236,6 +256,7 @@ impl Weights {
     /// Forget the attention cache: the next call starts a new sequence.
     pub fn reset(&mut self) {
         match &mut self.net {
+            Net::Dense(m) => m.clear_kv_cache(),
             Net::Llama(m) => m.clear_kv_cache(),
             Net::Qwen2(m) => m.clear_kv_cache(),
             Net::Qwen3(m) => m.clear_kv_cache(),
@@ -253,6 +274,7 @@ impl Weights {
             .and_then(|t| t.unsqueeze(0))
             .map_err(err)?;
         let logits = match &mut self.net {
+            Net::Dense(m) => m.forward(&x, pos),
             Net::Llama(m) => m.forward(&x, pos),
             Net::Qwen2(m) => m.forward(&x, pos),
             Net::Qwen3(m) => m.forward(&x, pos),
