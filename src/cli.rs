@@ -85,35 +85,33 @@ enum DrafterArg {
 
 /// Who writes the draft. Whatever writes it, every sentence goes through
 /// the verifier; a model draft with no supported sentence falls back to the
-/// extractive answer, and says so.
+/// extractive answer, and says so. Defaults for these options may be set in
+/// the settings file (`$ONRECORD_CONFIG`, else ~/.config/onrecord/config.json);
+/// flags and ONRECORD_* variables override it.
 #[derive(Args, Debug, Clone)]
 struct DraftArgs {
-    /// Who writes the draft.
-    #[arg(long, value_enum, default_value_t = DrafterArg::Extractive, env = "ONRECORD_DRAFTER")]
-    drafter: DrafterArg,
+    /// Who writes the draft. [default: extractive]
+    #[arg(long, value_enum, env = "ONRECORD_DRAFTER")]
+    drafter: Option<DrafterArg>,
     /// Local model for `--drafter local` and `--rewrite`: `auto` (the default
     /// SmolLM2-135M-Instruct from the models folder or the hub cache), a
     /// .gguf file, a folder holding one, or a repository id already pulled.
-    /// Llama-family, Qwen2 and Qwen3 files are supported.
-    #[arg(
-        long,
-        env = "ONRECORD_LLM",
-        default_value = "auto",
-        value_name = "auto|FILE|DIR"
-    )]
-    llm: LlmChoice,
+    /// Llama-family, Qwen2 and Qwen3 files are supported. [default: auto]
+    #[arg(long, env = "ONRECORD_LLM", value_name = "auto|FILE|DIR")]
+    llm: Option<LlmChoice>,
     /// Base URL of an OpenAI-compatible endpoint, such as http://localhost:8080/v1.
     #[arg(long, env = "ONRECORD_REMOTE_URL", value_name = "URL")]
     remote_url: Option<String>,
     /// Model name the endpoint knows.
     #[arg(long, env = "ONRECORD_REMOTE_MODEL", value_name = "NAME")]
     remote_model: Option<String>,
-    /// Environment variable holding the endpoint's API key (never printed or logged).
-    #[arg(long, default_value = DEFAULT_KEY_ENV, value_name = "VAR")]
-    remote_key_env: String,
-    /// Longest wait for the endpoint's whole reply, in seconds.
-    #[arg(long, default_value_t = 300.0, value_name = "SECONDS")]
-    remote_timeout: f64,
+    /// Environment variable holding the endpoint's API key (never printed or
+    /// logged). [default: ONRECORD_API_KEY]
+    #[arg(long, value_name = "VAR")]
+    remote_key_env: Option<String>,
+    /// Longest wait for the endpoint's whole reply, in seconds. [default: 300]
+    #[arg(long, value_name = "SECONDS")]
+    remote_timeout: Option<f64>,
     /// Ask the endpoint for one reply instead of a stream.
     #[arg(long)]
     no_stream: bool,
@@ -136,6 +134,41 @@ struct DraftArgs {
 }
 
 impl DraftArgs {
+    /// Fill what the flags left unset from the settings file, then defaults.
+    fn with_settings(mut self, cfg: &onrecord::config::Config) -> Result<DraftArgs> {
+        if self.drafter.is_none() {
+            self.drafter = Some(match cfg.drafter.as_deref() {
+                Some("local") => DrafterArg::Local,
+                Some("remote") => DrafterArg::Remote,
+                _ => DrafterArg::Extractive,
+            });
+        }
+        if self.llm.is_none() {
+            self.llm = Some(match &cfg.llm {
+                Some(l) => l.parse().map_err(anyhow::Error::msg)?,
+                None => LlmChoice::Auto,
+            });
+        }
+        let r = &cfg.remote;
+        self.remote_url = self.remote_url.take().or_else(|| r.url.clone());
+        self.remote_model = self.remote_model.take().or_else(|| r.model.clone());
+        self.remote_key_env = Some(
+            self.remote_key_env
+                .take()
+                .or_else(|| r.key_env.clone())
+                .unwrap_or_else(|| DEFAULT_KEY_ENV.into()),
+        );
+        self.remote_timeout = Some(self.remote_timeout.or(r.timeout_secs).unwrap_or(300.0));
+        if r.stream == Some(false) {
+            self.no_stream = true;
+        }
+        Ok(self)
+    }
+
+    fn drafter(&self) -> DrafterArg {
+        self.drafter.unwrap_or(DrafterArg::Extractive)
+    }
+
     fn gen_options(&self) -> Result<GenOptions> {
         if !(self.temperature.is_finite() && self.temperature >= 0.0) {
             bail!("--temperature must be 0 or more (got {})", self.temperature);
@@ -152,35 +185,41 @@ impl DraftArgs {
     }
 
     fn wants_model(&self) -> bool {
-        self.drafter != DrafterArg::Extractive || self.rewrite
+        self.drafter() != DrafterArg::Extractive || self.rewrite
     }
 
     /// The model to prompt: the remote endpoint for `--drafter remote` (or
     /// for `--rewrite` when a URL is given), else the local model.
     fn generator(&self, quiet: bool) -> Result<Arc<dyn Generator>> {
-        let remote = self.drafter == DrafterArg::Remote
-            || (self.drafter == DrafterArg::Extractive && self.remote_url.is_some());
+        let remote = self.drafter() == DrafterArg::Remote
+            || (self.drafter() == DrafterArg::Extractive && self.remote_url.is_some());
         if remote {
             let Some(url) = &self.remote_url else {
                 bail!(
-                    "--drafter remote needs --remote-url (or ONRECORD_REMOTE_URL), such as http://localhost:8080/v1"
+                    "--drafter remote needs --remote-url (or ONRECORD_REMOTE_URL, or remote.url in {}), such as http://localhost:8080/v1",
+                    onrecord::config::config_path().display()
                 );
             };
             let Some(model) = &self.remote_model else {
                 bail!(
-                    "--drafter remote needs --remote-model (or ONRECORD_REMOTE_MODEL): the model name the endpoint knows"
+                    "--drafter remote needs --remote-model (or ONRECORD_REMOTE_MODEL, or remote.model in {}): the model name the endpoint knows",
+                    onrecord::config::config_path().display()
                 );
             };
-            if !(self.remote_timeout.is_finite() && self.remote_timeout > 0.0) {
+            let timeout = self.remote_timeout.unwrap_or(300.0);
+            if !(timeout.is_finite() && timeout > 0.0) {
                 bail!("--remote-timeout must be a positive number of seconds");
             }
             let mut cfg = RemoteConfig::new(url.clone(), model.clone());
-            cfg.key_env = self.remote_key_env.clone();
-            cfg.timeout = std::time::Duration::from_secs_f64(self.remote_timeout);
+            cfg.key_env = self
+                .remote_key_env
+                .clone()
+                .unwrap_or_else(|| DEFAULT_KEY_ENV.into());
+            cfg.timeout = std::time::Duration::from_secs_f64(timeout);
             cfg.stream = !self.no_stream;
             return Ok(Arc::new(RemoteModel::new(cfg)?));
         }
-        let path = onrecord::llm::resolve(&self.llm)?;
+        let path = onrecord::llm::resolve(self.llm.as_ref().unwrap_or(&LlmChoice::Auto))?;
         if !quiet {
             eprintln!("Loading {} ...", path.display());
         }
@@ -619,6 +658,7 @@ pub fn run() -> Result<ExitCode> {
                 min_score,
                 ..Default::default()
             };
+            let draft = draft.with_settings(&onrecord::config::Config::load()?)?;
             let a = if draft.wants_model() {
                 ask_with_model(&idx, &question, &filters.resolve(), k, cfg, &draft, json)?
             } else {
@@ -1032,7 +1072,7 @@ fn ask_with_model(
         }));
     }
     let (drafter, settings): (&dyn Drafter, serde_json::Value) =
-        if args.drafter == DrafterArg::Extractive {
+        if args.drafter() == DrafterArg::Extractive {
             (&extractive, serde_json::to_value(cfg)?)
         } else {
             (&model_drafter, serde_json::to_value(model_cfg)?)

@@ -9,6 +9,7 @@
 pub mod answer;
 pub mod bm25;
 pub mod chunk;
+pub mod config;
 pub mod demo;
 pub mod draft;
 pub mod embed;

@@ -378,3 +378,80 @@ fn a_remote_drafter_without_a_url_says_what_is_missing() {
     let err = String::from_utf8(out.stderr).unwrap();
     assert!(err.contains("--drafter remote needs --remote-url"), "{err}");
 }
+
+/// The settings file supplies the drafter and the endpoint; a flag still
+/// overrides it; a file holding a key is refused, naming the file.
+#[test]
+fn the_settings_file_sets_drafting_defaults_and_never_holds_a_key() {
+    use crate::endpoint::{Reply, serve};
+    let src = tempfile::tempdir().unwrap();
+    let idx = tempfile::tempdir().unwrap();
+    write(
+        src.path(),
+        "minutes.txt",
+        "The board approved the dredging amendment of $1.4 million on 3 June 2020.",
+    );
+    onrecord(&["ingest", src.path().to_str().unwrap()], idx.path());
+    let ep = serve(vec![Reply::Stream(vec![
+        "The amendment was $1.4 million. [1] \"the dredging amendment of $1.4 million\"".into(),
+    ])]);
+    let conf = tempfile::tempdir().unwrap();
+    let good = write(
+        conf.path(),
+        "config.json",
+        format!(
+            r#"{{"drafter": "remote", "remote": {{"url": "{}", "model": "settings-model", "timeout_secs": 20}}}}"#,
+            ep.base_url
+        ),
+    );
+    let run = |config: &std::path::Path, extra: &[&str]| {
+        let mut args = vec!["ask", "How much was the dredging amendment?", "--json"];
+        args.extend_from_slice(extra);
+        Command::new(env!("CARGO_BIN_EXE_onrecord"))
+            .args(&args)
+            .env("ONRECORD_INDEX", idx.path())
+            .env("ONRECORD_CONFIG", config)
+            .env_remove("ONRECORD_DRAFTER")
+            .env_remove("ONRECORD_REMOTE_URL")
+            .env_remove("ONRECORD_REMOTE_MODEL")
+            .output()
+            .unwrap()
+    };
+    let out = run(&good, &[]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert!(
+        v["draft"]["model"]
+            .as_str()
+            .unwrap()
+            .starts_with("settings-model at")
+    );
+    assert_eq!(v["sentences"][0]["verdict"], "supported");
+    assert_eq!(
+        ep.requests.lock().unwrap()[0].body["model"],
+        "settings-model"
+    );
+    // A flag wins over the file: no model, no request.
+    let out = run(&good, &["--drafter", "extractive"]);
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert!(v.get("draft").is_none());
+    assert_eq!(ep.requests.lock().unwrap().len(), 1);
+
+    let bad = write(
+        conf.path(),
+        "bad.json",
+        r#"{"remote": {"url": "http://x/v1", "api_key": "sk-live-123"}}"#,
+    );
+    let out = run(&bad, &[]);
+    assert_eq!(out.status.code(), Some(1));
+    let err = String::from_utf8(out.stderr).unwrap();
+    assert!(
+        err.contains("bad.json") && err.contains("holds an API key"),
+        "{err}"
+    );
+    assert!(!err.contains("sk-live-123"), "{err}");
+}
