@@ -39,16 +39,24 @@ pub struct Excerpt {
     pub text: String,
 }
 
-fn render(name: &str, source: &str, ctx: minijinja::Value) -> Result<String> {
+/// A minijinja environment with the whitespace rules of Hugging Face chat
+/// templates (`trim_blocks`, `lstrip_blocks`), used for our prompts and for
+/// models' own chat templates alike.
+pub fn jinja_environment<'a>() -> Result<minijinja::Environment<'a>> {
     let mut env = minijinja::Environment::new();
     env.set_syntax(
         minijinja::syntax::SyntaxConfig::builder()
             .trim_blocks(true)
             .lstrip_blocks(true)
             .build()
-            .map_err(|e| Error::Invalid(format!("prompt {name}: {e}")))?,
+            .map_err(|e| Error::Invalid(format!("template syntax: {e}")))?,
     );
-    env.render_str(source, ctx)
+    Ok(env)
+}
+
+fn render(name: &str, source: &str, ctx: minijinja::Value) -> Result<String> {
+    jinja_environment()?
+        .render_str(source, ctx)
         .map(|s| s.trim_end().to_string())
         .map_err(|e| Error::Invalid(format!("prompt {name}: {e}")))
 }

@@ -192,14 +192,7 @@ pub fn render_template(
     bos: &str,
     eos: &str,
 ) -> Result<String> {
-    let mut env = minijinja::Environment::new();
-    env.set_syntax(
-        minijinja::syntax::SyntaxConfig::builder()
-            .trim_blocks(true)
-            .lstrip_blocks(true)
-            .build()
-            .map_err(|e| Error::Invalid(format!("chat template syntax: {e}")))?,
-    );
+    let mut env = crate::prompt::jinja_environment()?;
     env.set_unknown_method_callback(minijinja_contrib::pycompat::unknown_method_callback);
     env.add_function(
         "raise_exception",
