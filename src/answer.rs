@@ -295,7 +295,10 @@ pub fn ask_with(index: &Index, question: &str, plan: AskPlan<'_>) -> Result<Answ
         } else {
             "the model's draft had no sentence with a citation to check"
         };
-        rec.fallback = Some(format!("{why}; this is the {} answer", fb.name()));
+        rec.fallback = Some(format!(
+            "{why}; the answer below comes from the {} drafter instead, which quotes the records' own sentences",
+            fb.name()
+        ));
         rec.verdicts = std::mem::take(&mut sentences);
         draft = fb.draft(&req)?;
         sentences = verify(&draft, &chunks, plan.judge, &page_hash);
