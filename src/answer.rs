@@ -441,7 +441,30 @@ pub fn render_text(a: &AnswerRecord) -> String {
                 None => format!("p. {}", c.page),
             };
             let _ = writeln!(out, "  [{}] {head}, {pages} ({})", i + 1, c.doc_id);
-            let _ = writeln!(out, "      \u{201C}{}\u{201D}", c.quote);
+            match &c.quoted_as {
+                Some(q) => {
+                    let _ = writeln!(out, "      quoted as  \u{201C}{q}\u{201D}");
+                    let _ = writeln!(
+                        out,
+                        "      page reads \u{201C}{}\u{201D}{}",
+                        c.quote,
+                        if c.similarity < 1.0 {
+                            format!(" (match {:.0}%)", c.similarity * 100.0)
+                        } else {
+                            String::new()
+                        }
+                    );
+                }
+                None => {
+                    let _ = writeln!(out, "      \u{201C}{}\u{201D}", c.quote);
+                }
+            }
+            if c.corrected_from.is_some() {
+                let _ = writeln!(
+                    out,
+                    "      (citation corrected: the drafter pointed to another passage; the quote is here)"
+                );
+            }
         }
     }
     let mut struck: Vec<&VerifiedSentence> = a.struck().collect();

@@ -16,7 +16,7 @@ use onrecord::llm::{GenOptions, Generator, LlmChoice};
 use onrecord::manifest::Manifest;
 use onrecord::retrieve::{self, Index, RetrieverKind, SearchOptions};
 use onrecord::types::{DocId, DocMeta, Filters, check_date};
-use onrecord::verify::RulesJudge;
+use onrecord::verify::{Judge, JudgeKind, RulesJudge};
 use std::io::{IsTerminal, Write};
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -421,6 +421,12 @@ enum Command {
         /// Abstain unless a sentence scores at least this (0-1).
         #[arg(long, default_value_t = ExtractiveConfig::default().min_score)]
         min_score: f32,
+        /// Which judge decides whether a quote supports a sentence: rules
+        /// (explicit checks on dates, amounts, names, negation, quantities,
+        /// swapped words and content-word coverage) or learned (a classifier
+        /// over the same checks, trained on open data).
+        #[arg(long, value_enum, default_value_t = JudgeKind::default())]
+        judge: JudgeKind,
         #[command(flatten)]
         draft: DraftArgs,
         /// Print the versioned answer record as JSON (with the model's raw
@@ -453,6 +459,9 @@ enum Command {
     /// Measure quality on open data.
     #[command(subcommand)]
     Eval(EvalCommand),
+    /// Rebuild learned components from open data.
+    #[command(subcommand)]
+    Train(TrainCommand),
     /// Rebuild the search indexes from the store: BM25, and the vector
     /// index (embedding any chunk that has no vector yet).
     Reindex {
@@ -558,6 +567,103 @@ enum EvalCommand {
         #[arg(long)]
         json: bool,
     },
+    /// Score the verifier's judge on labelled (claim, evidence) pairs.
+    ///
+    /// Each line of the pair file: {"id", "claim", "evidence": "text" or
+    /// ["sentence", ...], "label": "supported" | "unsupported"}. Prints the
+    /// balanced accuracy, the pass-through rate (unsupported claims judged
+    /// supported: the errors that reach a reporter) and the retention rate
+    /// (supported claims kept), with counts per kind of pair and the reasons
+    /// given for strikes.
+    Verifier {
+        /// JSON Lines pair file (see `eval make-pairs`).
+        #[arg(long, value_name = "FILE")]
+        pairs: PathBuf,
+        #[arg(long, value_enum, default_value_t = JudgeKind::default())]
+        judge: JudgeKind,
+        /// Learned-judge weights to use instead of the built-in ones.
+        #[arg(long, value_name = "FILE")]
+        weights: Option<PathBuf>,
+        /// Rules judge: lowest share of the sentence's content words that must
+        /// be in the evidence (default: the built-in value).
+        #[arg(long, value_name = "SHARE")]
+        min_coverage: Option<f32>,
+        /// Write every misjudged pair, with the judge's reason, to this JSON Lines file.
+        #[arg(long, value_name = "FILE")]
+        errors: Option<PathBuf>,
+        #[arg(long)]
+        json: bool,
+    },
+    /// Write verifier pairs built from open data, as JSON Lines.
+    ///
+    /// From SQuAD v1.1 (--squad): for the sentence holding each gold answer,
+    /// supported claims (the sentence, the clause that holds the answer, a
+    /// spacing and punctuation variant) and unsupported ones (a number or a
+    /// date changed, a name swapped for another from the same article, a
+    /// negation inserted or removed, the answer replaced by another
+    /// question's answer, the sentence against another paragraph). Seeded and
+    /// deterministic. From SciFact (--scifact): each claim against its
+    /// rationale sentences; SUPPORT is supported, CONTRADICT unsupported.
+    MakePairs {
+        /// SQuAD v1.1 file (dev-v1.1.json).
+        #[arg(
+            long,
+            value_name = "FILE",
+            conflicts_with = "scifact",
+            required_unless_present = "scifact"
+        )]
+        squad: Option<PathBuf>,
+        /// Articles to use, FIRST-LAST counting from 1 (tune on 1-24, report on 25-48).
+        #[arg(long, value_name = "A-B", default_value = "1-24", value_parser = parse_articles)]
+        articles: std::ops::RangeInclusive<usize>,
+        /// SciFact claims file (claims_train.jsonl or claims_dev.jsonl); the
+        /// corpus.jsonl beside it supplies the sentences.
+        #[arg(long, value_name = "FILE")]
+        scifact: Option<PathBuf>,
+        /// Seed for the choices made while perturbing (which number, which name, ...).
+        #[arg(long, default_value_t = 20_240_601)]
+        seed: u64,
+        /// Where to write (default: standard output).
+        #[arg(long, short, value_name = "FILE")]
+        out: Option<PathBuf>,
+    },
+}
+
+fn parse_articles(s: &str) -> std::result::Result<std::ops::RangeInclusive<usize>, String> {
+    onrecord::eval::pairs::parse_articles(s)
+}
+
+#[derive(Subcommand, Debug)]
+enum TrainCommand {
+    /// Rebuild the learned judge's weights from open data: SQuAD v1.1
+    /// articles 1-24 (adversarial pairs) and SciFact train claims. The
+    /// result is deterministic; the built-in weights are this command's
+    /// output at its defaults.
+    Judge {
+        /// SQuAD v1.1 file (default: dev-v1.1.json in the shared data folder).
+        #[arg(long, value_name = "FILE")]
+        squad: Option<PathBuf>,
+        /// SciFact train claims (default: claims_train.jsonl in the shared data folder).
+        #[arg(long, value_name = "FILE")]
+        scifact: Option<PathBuf>,
+        /// Seed for the choices made while perturbing (which number, which name, ...).
+        #[arg(long, default_value_t = 20_240_601)]
+        seed: u64,
+        /// Highest pass-through allowed on the training pairs when choosing the threshold.
+        #[arg(long, default_value_t = 0.01)]
+        max_pass_through: f32,
+        /// Where to write the weights.
+        #[arg(
+            long,
+            short,
+            value_name = "FILE",
+            default_value = "src/verify/learned-judge.json"
+        )]
+        out: PathBuf,
+        /// Print the weights file as JSON.
+        #[arg(long)]
+        json: bool,
+    },
 }
 
 pub fn run() -> Result<ExitCode> {
@@ -648,9 +754,11 @@ pub fn run() -> Result<ExitCode> {
             k,
             max_sentences,
             min_score,
+            judge,
             draft,
             json,
         } => {
+            let judge = judge.build();
             let opts = retrieval.resolve()?;
             let idx = open_index(&index.index, &choice, &opts)?;
             let cfg = ExtractiveConfig {
@@ -660,9 +768,17 @@ pub fn run() -> Result<ExitCode> {
             };
             let draft = draft.with_settings(&onrecord::config::Config::load()?)?;
             let a = if draft.wants_model() {
-                ask_with_model(&idx, &question, &filters.resolve(), k, cfg, &draft, json)?
+                ask_with_model(
+                    &idx,
+                    &question,
+                    (&filters.resolve(), k),
+                    cfg,
+                    &draft,
+                    judge.as_ref(),
+                    json,
+                )?
             } else {
-                ask_one(&idx, &question, &filters.resolve(), k, cfg)?
+                ask_one(&idx, &question, &filters.resolve(), k, cfg, judge.as_ref())?
             };
             print_answer(&a, json)?;
             Ok(ExitCode::SUCCESS)
@@ -743,6 +859,48 @@ pub fn run() -> Result<ExitCode> {
         Command::Eval(EvalCommand::Abstention { squad, cap, json }) => {
             cmd_eval_abstention(&squad, cap, json)
         }
+        Command::Eval(EvalCommand::Verifier {
+            pairs,
+            judge,
+            weights,
+            min_coverage,
+            errors,
+            json,
+        }) => {
+            let judge: Box<dyn Judge> = match (judge, weights, min_coverage) {
+                (JudgeKind::Learned, Some(w), None) => {
+                    Box::new(onrecord::verify::LearnedJudge::from_file(&w)?)
+                }
+                (JudgeKind::Rules, None, Some(c)) => Box::new(RulesJudge { min_coverage: c }),
+                (k, None, None) => k.build(),
+                (_, Some(_), _) if judge == JudgeKind::Rules => {
+                    bail!("--weights is for --judge learned")
+                }
+                _ => bail!("--min-coverage is for --judge rules"),
+            };
+            cmd_eval_verifier(&pairs, judge.as_ref(), errors.as_deref(), json)
+        }
+        Command::Eval(EvalCommand::MakePairs {
+            squad,
+            articles,
+            scifact,
+            seed,
+            out,
+        }) => cmd_make_pairs(
+            squad.as_deref(),
+            articles,
+            scifact.as_deref(),
+            seed,
+            out.as_deref(),
+        ),
+        Command::Train(TrainCommand::Judge {
+            squad,
+            scifact,
+            seed,
+            max_pass_through,
+            out,
+            json,
+        }) => cmd_train_judge(squad, scifact, seed, max_pass_through, &out, json),
         Command::Eval(EvalCommand::Retrieval {
             beir,
             split,
@@ -767,6 +925,148 @@ pub fn run() -> Result<ExitCode> {
             cmd_eval_retrieval(&beir, &split, &choice, &kinds, weights, chunk, json)
         }
     }
+}
+
+fn cmd_eval_verifier(
+    pairs: &std::path::Path,
+    judge: &dyn Judge,
+    errors: Option<&std::path::Path>,
+    json: bool,
+) -> Result<ExitCode> {
+    use onrecord::eval::pairs::{evaluate, read_pairs};
+    let pairs = read_pairs(pairs)?;
+    let r = evaluate(&pairs, judge);
+    if let Some(path) = errors {
+        let mut f = std::io::BufWriter::new(
+            std::fs::File::create(path)
+                .with_context(|| format!("cannot write {}", path.display()))?,
+        );
+        for m in &r.misjudged {
+            writeln!(f, "{}", serde_json::to_string(m)?)?;
+        }
+        f.flush()?;
+    }
+    if json {
+        print_json(&r)?;
+        return Ok(ExitCode::SUCCESS);
+    }
+    println!(
+        "Judge {}: {} pairs ({} supported, {} unsupported)",
+        r.judge, r.pairs, r.supported, r.unsupported
+    );
+    println!("  balanced accuracy  {:.3}", r.balanced_accuracy);
+    println!(
+        "  pass-through       {:.2}%  (unsupported judged supported: {} of {})",
+        r.pass_through * 100.0,
+        r.false_supported,
+        r.unsupported
+    );
+    println!(
+        "  retention          {:.2}%  (supported kept: {} of {})",
+        r.retention * 100.0,
+        r.true_supported,
+        r.supported
+    );
+    println!(
+        "\n  {:<18} {:>12} {:>7} {:>16}",
+        "kind", "label", "pairs", "judged supported"
+    );
+    for (kind, k) in &r.by_kind {
+        let label = match k.label {
+            Some(onrecord::eval::pairs::Label::Supported) => "supported",
+            Some(onrecord::eval::pairs::Label::Unsupported) => "unsupported",
+            None => "-",
+        };
+        println!(
+            "  {kind:<18} {label:>12} {:>7} {:>16}",
+            k.pairs, k.judged_supported
+        );
+    }
+    if !r.strike_reasons.is_empty() {
+        println!("\n  Reasons given for strikes:");
+        let mut reasons: Vec<(&String, &usize)> = r.strike_reasons.iter().collect();
+        reasons.sort_by(|a, b| b.1.cmp(a.1).then(a.0.cmp(b.0)));
+        for (why, n) in reasons {
+            println!("  {n:>7}  {why}");
+        }
+    }
+    println!("\n  {:.3} ms per pair", r.mean_ms_per_pair);
+    Ok(ExitCode::SUCCESS)
+}
+
+fn cmd_make_pairs(
+    squad: Option<&std::path::Path>,
+    articles: std::ops::RangeInclusive<usize>,
+    scifact: Option<&std::path::Path>,
+    seed: u64,
+    out: Option<&std::path::Path>,
+) -> Result<ExitCode> {
+    use onrecord::eval::pairs::{scifact_pairs, squad_pairs, write_pairs};
+    let pairs = match (squad, scifact) {
+        (Some(sq), _) => squad_pairs(sq, articles, seed)?,
+        (None, Some(claims)) => {
+            let corpus = claims.with_file_name("corpus.jsonl");
+            scifact_pairs(claims, &corpus)?
+        }
+        (None, None) => bail!("give --squad FILE or --scifact FILE"),
+    };
+    match out {
+        Some(path) => {
+            let mut f = std::io::BufWriter::new(
+                std::fs::File::create(path)
+                    .with_context(|| format!("cannot write {}", path.display()))?,
+            );
+            write_pairs(&pairs, &mut f)?;
+            f.flush()?;
+            eprintln!("{} pairs written to {}", pairs.len(), path.display());
+        }
+        None => write_pairs(&pairs, &mut std::io::stdout().lock())?,
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+fn cmd_train_judge(
+    squad: Option<PathBuf>,
+    scifact: Option<PathBuf>,
+    seed: u64,
+    max_pass_through: f32,
+    out: &std::path::Path,
+    json: bool,
+) -> Result<ExitCode> {
+    use onrecord::eval::pairs::{scifact_pairs, squad_pairs, train_judge};
+    let data = onrecord::shared_data_dir();
+    let squad = squad.unwrap_or_else(|| data.join("squad-v1.1/dev-v1.1.json"));
+    let scifact = scifact.unwrap_or_else(|| data.join("scifact/claims_train.jsonl"));
+    let mut pairs = squad_pairs(&squad, 1..=24, seed)?;
+    let n_squad = pairs.len();
+    pairs.extend(scifact_pairs(
+        &scifact,
+        &scifact.with_file_name("corpus.jsonl"),
+    )?);
+    let trained_on = serde_json::json!({
+        "squad": {"file": squad.file_name().map(|f| f.to_string_lossy().into_owned()), "articles": "1-24", "seed": seed, "pairs": n_squad},
+        "scifact": {"file": scifact.file_name().map(|f| f.to_string_lossy().into_owned()), "pairs": pairs.len() - n_squad},
+        "max_pass_through": (f64::from(max_pass_through) * 1e4).round() / 1e4,
+    });
+    let w = train_judge(&pairs, max_pass_through, trained_on);
+    let text = serde_json::to_string_pretty(&w)? + "\n";
+    let tmp = out.with_extension("json.tmp");
+    std::fs::write(&tmp, text).with_context(|| format!("cannot write {}", tmp.display()))?;
+    std::fs::rename(&tmp, out).with_context(|| format!("cannot write {}", out.display()))?;
+    if json {
+        print_json(&w)?;
+    } else {
+        println!(
+            "Learned judge trained on {} pairs; threshold {:.4}; written to {}",
+            pairs.len(),
+            w.threshold,
+            out.display()
+        );
+        for (f, v) in w.features.iter().zip(&w.weights) {
+            println!("  {f:<18} {v:>8.3}");
+        }
+    }
+    Ok(ExitCode::SUCCESS)
 }
 
 fn cmd_eval_abstention(squad: &std::path::Path, cap: usize, json: bool) -> Result<ExitCode> {
@@ -1024,6 +1324,7 @@ fn ask_one(
     filters: &Filters,
     k: usize,
     cfg: ExtractiveConfig,
+    judge: &dyn Judge,
 ) -> Result<AnswerRecord> {
     let drafter = Extractive::new(cfg);
     Ok(answer::ask(
@@ -1033,7 +1334,7 @@ fn ask_one(
         k,
         &drafter,
         serde_json::to_value(cfg)?,
-        &RulesJudge::default(),
+        judge,
     )?)
 }
 
@@ -1043,10 +1344,10 @@ fn ask_one(
 fn ask_with_model(
     idx: &Index,
     question: &str,
-    filters: &Filters,
-    k: usize,
+    (filters, k): (&Filters, usize),
     cfg: ExtractiveConfig,
     args: &DraftArgs,
+    judge: &dyn Judge,
     json: bool,
 ) -> Result<AnswerRecord> {
     let gen_opts = args.gen_options()?;
@@ -1085,7 +1386,7 @@ fn ask_with_model(
             k,
             drafter,
             drafter_settings: settings,
-            judge: &RulesJudge::default(),
+            judge,
             fallback: Some(&extractive),
             rewrite: args.rewrite.then_some(model.as_ref()),
         },
@@ -1419,6 +1720,7 @@ fn cmd_demo(
             &Filters::default(),
             10,
             ExtractiveConfig::default(),
+            &RulesJudge::default(),
         )?;
         if json {
             writeln!(out, "{}", serde_json::to_string(&a)?)?;

@@ -132,6 +132,24 @@ pub struct Citation {
     pub quote: String,
     /// Content hash of the page the quote starts on.
     pub page_hash: String,
+    /// The drafter's wording of the quote, when the page reads differently
+    /// (OCR damage, or a quote the drafter "cleaned"): shown as
+    /// "quoted as … / page reads …".
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub quoted_as: Option<String>,
+    /// How closely the quote as written matched the page: 1 when its letters
+    /// and digits match (OCR look-alikes folded), lower for an approximate
+    /// match.
+    #[serde(default = "one")]
+    pub similarity: f32,
+    /// The chunk the drafter cited, when the quote was found in another
+    /// retrieved chunk and the citation was corrected.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub corrected_from: Option<ChunkId>,
+}
+
+fn one() -> f32 {
+    1.0
 }
 
 /// Validate an ISO date or date prefix (`YYYY`, `YYYY-MM`, `YYYY-MM-DD`).

@@ -6,6 +6,7 @@
 
 pub mod beir;
 pub mod metrics;
+pub mod pairs;
 pub mod squad;
 
 /// Peak resident memory of this process in MiB (Linux `VmHWM`), NaN where

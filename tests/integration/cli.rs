@@ -297,7 +297,7 @@ fn ask_with_a_remote_drafter_streams_then_verifies() {
         idx.path(),
     );
     assert!(out.status.success());
-    let draft = "The board approved $1.4 million for dredging. [1] \"approved the dredging amendment of $1.4 million\"\nThe board also bought a ferry.";
+    let draft = "The board approved $1.4 million for dredging. [1] \"The board approved the dredging amendment of $1.4 million\"\nThe board also bought a ferry.";
     let pieces: Vec<String> = draft.split_inclusive(' ').map(str::to_string).collect();
     let ep = serve(vec![Reply::Stream(pieces.clone()), Reply::Stream(pieces)]);
     let args = |json: bool| {
@@ -454,4 +454,113 @@ fn the_settings_file_sets_drafting_defaults_and_never_holds_a_key() {
         "{err}"
     );
     assert!(!err.contains("sk-live-123"), "{err}");
+}
+
+/// `eval verifier` on a small pair file: the stable JSON keys, the figures
+/// computed from the verdicts (balanced accuracy = mean of retention and
+/// 1 − pass-through), and a clear error naming the file and line.
+#[test]
+fn eval_verifier_reports_stable_keys_from_the_command_line() {
+    let dir = tempfile::tempdir().unwrap();
+    let pairs = dir.path().join("pairs.jsonl");
+    let lines = [
+        r#"{"id":"a","claim":"The budget rose to $4.1 million.","evidence":"The budget rose to $4,100,000 in 2020.","label":"supported"}"#,
+        r#"{"id":"b","claim":"The ramp closed in March 2022.","evidence":["The inspector visited.","The ramp closed on 14 March 2022."],"label":"supported"}"#,
+        r#"{"id":"c","claim":"The budget rose to $1.4 million.","evidence":"The budget rose to $4,100,000 in 2020.","label":"unsupported"}"#,
+        r#"{"id":"d","claim":"The board approved the plan.","evidence":"The board did not approve the plan.","label":"unsupported"}"#,
+    ];
+    std::fs::write(&pairs, lines.join("\n")).unwrap();
+    for judge in ["rules", "learned"] {
+        let out = onrecord(
+            &[
+                "eval",
+                "verifier",
+                "--pairs",
+                pairs.to_str().unwrap(),
+                "--judge",
+                judge,
+                "--json",
+            ],
+            dir.path(),
+        );
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+        assert_eq!(v["pairs"], 4);
+        let f = |k: &str| v[k].as_f64().unwrap();
+        assert_eq!(f("pass_through"), 0.0, "{judge}: {v}");
+        assert!(
+            (f("balanced_accuracy") - (f("retention") + 1.0 - f("pass_through")) / 2.0).abs()
+                < 1e-9
+        );
+        assert_eq!(v["strike_reasons"]["amount differs"], 1, "{v}");
+        if judge == "rules" {
+            assert_eq!(f("retention"), 1.0, "{v}");
+            assert_eq!(f("balanced_accuracy"), 1.0, "{v}");
+        }
+    }
+    std::fs::write(&pairs, "{\"id\":\"a\",\"claim\":\"x\"}\n").unwrap();
+    let out = onrecord(
+        &["eval", "verifier", "--pairs", pairs.to_str().unwrap()],
+        dir.path(),
+    );
+    assert!(!out.status.success());
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("pairs.jsonl") && err.contains("line 1"),
+        "{err}"
+    );
+}
+
+/// `eval make-pairs` writes the same pairs twice (seeded), and every pair
+/// parses back.
+#[test]
+fn make_pairs_is_deterministic() {
+    let Some(squad) = crate::support::shared_data("squad-v1.1/dev-v1.1.json") else {
+        return;
+    };
+    let dir = tempfile::tempdir().unwrap();
+    let run = |name: &str| {
+        let out_file = dir.path().join(name);
+        let out = onrecord(
+            &[
+                "eval",
+                "make-pairs",
+                "--squad",
+                squad.to_str().unwrap(),
+                "--articles",
+                "25-26",
+                "--out",
+                out_file.to_str().unwrap(),
+            ],
+            dir.path(),
+        );
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        std::fs::read_to_string(out_file).unwrap()
+    };
+    let (a, b) = (run("a.jsonl"), run("b.jsonl"));
+    assert_eq!(a, b);
+    let pairs = onrecord::eval::pairs::read_pairs(&dir.path().join("a.jsonl")).unwrap();
+    for kind in [
+        "verbatim",
+        "clause",
+        "variant",
+        "number",
+        "entity",
+        "negation",
+        "answer",
+        "other-paragraph",
+    ] {
+        assert!(
+            pairs.iter().any(|p| p.kind.as_deref() == Some(kind)),
+            "no {kind} pair"
+        );
+    }
 }

@@ -10,6 +10,7 @@ mod ingest;
 mod open_data;
 mod retrieval;
 mod support;
+mod verifier;
 
 /// As in the binary: the embedding model allocates many short-lived tensors.
 #[global_allocator]
