@@ -268,21 +268,21 @@ pub fn analyse(sentence: &str, evidence: &[Evidence<'_>]) -> Analysis {
         });
     }
 
-    let s_terms = content_keys(sentence);
     let q_terms: HashSet<String> = content_keys(&ev_text).into_iter().collect();
-    let mut uniq: Vec<String> = Vec::new();
-    for t in s_terms {
-        if !uniq.contains(&t) {
-            uniq.push(t);
+    let mut uniq: Vec<(String, &str)> = Vec::new();
+    for (t, w) in content_words(sentence) {
+        if !uniq.iter().any(|(u, _)| *u == t) {
+            uniq.push((t, w));
         }
     }
     // OCR that ran words together ("Theboard") still holds them.
     let run_together: Vec<&String> = q_words.iter().filter(|w| w.len() >= 8).collect();
+    // Reported as the sentence writes them.
     let missing: Vec<String> = uniq
         .iter()
-        .filter(|t| !q_terms.contains(*t) && !q_terms.iter().any(|q| near(q, t)))
-        .filter(|t| t.len() < 4 || !run_together.iter().any(|w| w.contains(t.as_str())))
-        .cloned()
+        .filter(|(t, _)| !q_terms.contains(t) && !q_terms.iter().any(|q| near(q, t)))
+        .filter(|(t, _)| t.len() < 4 || !run_together.iter().any(|w| w.contains(t.as_str())))
+        .map(|(_, w)| w.to_string())
         .collect();
     let coverage = if uniq.is_empty() {
         1.0
@@ -525,14 +525,19 @@ fn words_and_keys(s: &str) -> Vec<(String, String)> {
 /// left to the number check, which reads "1,178,914" and "1178914" alike,
 /// and month names to the date check ("March" and "2019-03-14").
 fn content_keys(s: &str) -> Vec<String> {
+    content_words(s).into_iter().map(|(k, _)| k).collect()
+}
+
+/// [`content_keys`] with each key's word as written.
+fn content_words(s: &str) -> Vec<(String, &str)> {
     static W: LazyLock<Regex> = LazyLock::new(|| Regex::new(r"[\p{L}\p{N}]+").unwrap());
     W.find_iter(s)
         .map(|m| m.as_str())
         .filter(|w| !is_stopword(&w.to_lowercase()))
         .filter(|w| !w.chars().all(|c| c.is_ascii_digit()))
         .filter(|w| numbers(w).is_empty() && month_num(w).is_none())
-        .map(word_key)
-        .filter(|t| !t.is_empty() && !UNITS.contains(t))
+        .map(|w| (word_key(w), w))
+        .filter(|(t, _)| !t.is_empty() && !UNITS.contains(t))
         .collect()
 }
 
