@@ -144,14 +144,14 @@ pub fn analyse(sentence: &str, evidence: &[Evidence<'_>]) -> Analysis {
     // Dates first, so their digits are not read again as bare numbers.
     let (s_dates, s_rest) = dates(sentence);
     let (q_dates, q_rest) = dates(&ev_text);
-    if let Some((surface, _)) = s_dates.iter().find(|(_, key)| {
+    if let Some((surface, s_key)) = s_dates.iter().find(|(_, key)| {
         !q_dates.iter().any(|(_, qk)| {
             qk == key
                 || qk.starts_with(&format!("{key}-"))
                 || (key.starts_with("--") && qk.ends_with(&key[1..]))
         })
     }) {
-        let reason = match nearest_date(surface, &q_dates) {
+        let reason = match nearest_date(s_key, &q_dates) {
             Some(q) => format!("date differs: the sentence says {surface}, {where_} reads {q}"),
             None => {
                 format!("date not found: the sentence says {surface}, {where_} gives no such date")
@@ -472,9 +472,20 @@ fn nearest_number(key: &str, kind: &str, q: &[(String, String)]) -> Option<Strin
         .map(|(_, s)| s.clone())
 }
 
-fn nearest_date(surface: &str, q: &[(String, String)]) -> Option<String> {
-    let _ = surface;
-    q.first().map(|(s, _)| s.clone())
+/// The quoted date whose key shares the longest prefix with `key` (same
+/// year, then same month), as the evidence writes it.
+fn nearest_date(key: &str, q: &[(String, String)]) -> Option<String> {
+    q.iter()
+        .max_by_key(|(_, k)| {
+            let shared = k
+                .bytes()
+                .zip(key.bytes())
+                .take_while(|(a, b)| a == b)
+                .count();
+            // The first date wins a tie.
+            (shared, std::cmp::Reverse(q.iter().position(|x| x.1 == *k)))
+        })
+        .map(|(s, _)| s.clone())
 }
 
 /// Lower-case, OCR-folded form of a word, for comparisons.
@@ -788,20 +799,18 @@ fn modality_mismatch(sentence: &str, ev: &str, where_: &str) -> Option<String> {
     let q = lower_words(ev);
     let s_hedge = s.iter().find(|w| HEDGES.contains(&w.as_str()));
     let q_hedge = q.iter().find(|w| HEDGES.contains(&w.as_str()));
-    match (s_hedge, q_hedge) {
-        (None, Some(h)) if s.iter().any(|w| FIRM.contains(&w.as_str())) => {
-            // Only when the hedge governs words the sentence repeats.
-            let after = hedge_scope(ev, h);
-            let s_keys: HashSet<String> = content_keys(sentence).into_iter().collect();
-            after.iter().any(|k| s_keys.contains(k)).then(|| {
-                format!(
-                    "certainty changed: {where_} says it \u{201C}{h}\u{201D} happen, the sentence states it as fact"
-                )
-            })
-        }
-        (Some(h), None) if q.iter().any(|w| FIRM.contains(&w.as_str())) && h == "will" => None,
-        _ => None,
-    }
+    // Only a hedge in the evidence that the sentence drops, where the
+    // sentence states it firmly and the hedge governs words it repeats.
+    let h = match (s_hedge, q_hedge) {
+        (None, Some(h)) if s.iter().any(|w| FIRM.contains(&w.as_str())) => h,
+        _ => return None,
+    };
+    let s_keys: HashSet<String> = content_keys(sentence).into_iter().collect();
+    hedge_scope(ev, h).iter().any(|k| s_keys.contains(k)).then(|| {
+        format!(
+            "certainty changed: {where_} says it \u{201C}{h}\u{201D} happen, the sentence states it as fact"
+        )
+    })
 }
 
 /// Content keys of the few words after a hedge in `text`.
@@ -1083,6 +1092,10 @@ impl Alignment {
         let mut anchors = vec![(usize::MAX, usize::MAX)];
         anchors.extend(self.pairs.iter().copied());
         anchors.push((s.len(), self.evidence.len()));
+        let e_nums: HashSet<String> = numbers(&self.evidence_words.join(" "))
+            .into_iter()
+            .map(|(_, k)| k)
+            .collect();
         for w in anchors.windows(2) {
             let (a, b) = (w[0], w[1]);
             let s_from = a.0.wrapping_add(1);
@@ -1109,10 +1122,6 @@ impl Alignment {
             // A figure in the sentence's gap must be a figure of the evidence
             // sentence ("4.1 million" for "4,100,000"), else it was swapped in.
             let s_gap_text = s_words[s_from..b.0].join(" ");
-            let e_nums: HashSet<String> = numbers(&self.evidence_words.join(" "))
-                .into_iter()
-                .map(|(_, k)| k)
-                .collect();
             let figure_swapped = !e_gap.is_empty()
                 && numbers(&s_gap_text)
                     .iter()
