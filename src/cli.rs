@@ -331,6 +331,46 @@ enum PdfRouteArg {
     Builtin,
 }
 
+/// How `ask` and `replay` print their result.
+#[derive(Args, Debug, Clone, Copy)]
+struct ExportArgs {
+    /// Print the versioned record as JSON: the answer record (`ask`, with a
+    /// model's raw draft and the verdicts on it) or the replay report.
+    #[arg(long, conflicts_with_all = ["csv", "markdown"])]
+    json: bool,
+    /// Print one CSV row per sentence and quote (RFC 4180): question,
+    /// sentence, verdict, reason, doc_id, title, organisation, date, page,
+    /// quote, fingerprint.
+    #[arg(long, conflicts_with = "markdown")]
+    csv: bool,
+    /// Print Markdown with footnotes (doc id, page, fingerprint and the
+    /// verbatim quote), which `replay` reads back; after a replay, with
+    /// each sentence's verdict.
+    #[arg(long)]
+    markdown: bool,
+}
+
+impl ExportArgs {
+    fn format(self) -> Export {
+        match (self.json, self.csv, self.markdown) {
+            (true, _, _) => Export::Json,
+            (_, true, _) => Export::Csv,
+            (_, _, true) => Export::Markdown,
+            _ => Export::Text,
+        }
+    }
+}
+
+impl PdfRouteArg {
+    fn route(self) -> PdfRoute {
+        match self {
+            PdfRouteArg::Auto => default_route(),
+            PdfRouteArg::Pdftotext => PdfRoute::Pdftotext,
+            PdfRouteArg::Builtin => PdfRoute::PureRust,
+        }
+    }
+}
+
 #[derive(Subcommand, Debug)]
 enum Command {
     /// Add files and folders (PDF, .txt, .md, .html, .eml) to the index.
@@ -429,10 +469,69 @@ enum Command {
         judge: JudgeKind,
         #[command(flatten)]
         draft: DraftArgs,
-        /// Print the versioned answer record as JSON (with the model's raw
-        /// draft and the verdicts on it, when a model drafted).
+        #[command(flatten)]
+        export: ExportArgs,
+    },
+    /// List the answers logged by `ask`, newest first.
+    ///
+    /// Every answer is kept in the index with its question, configuration
+    /// and full record, through re-ingest and reindex. Check one again with
+    /// `onrecord replay --id N`.
+    History {
+        #[command(flatten)]
+        index: IndexArg,
+        /// Show at most this many.
+        #[arg(short = 'n', long, default_value_t = 50)]
+        limit: usize,
         #[arg(long)]
         json: bool,
+    },
+    /// Check a saved answer, or a footnoted draft, again: sentence by
+    /// sentence, against the pages as they are now.
+    ///
+    /// Reads JSON from `ask --json`, Markdown from `ask --markdown` (or a
+    /// draft written with the same footnotes), or an answer from the log
+    /// (--id). Each sentence: holds; fails (with the reason); source
+    /// changed (the page's content differs from its fingerprint, with the
+    /// words that changed); source missing.
+    ///
+    /// Exit codes: 0 every sentence holds; 1 any sentence fails or its
+    /// source changed or is missing; 2 the answer or the sources could not
+    /// be used (nothing was checked).
+    #[command(
+        after_help = "Examples:\n  onrecord ask \"...\" --markdown > answer.md\n  onrecord replay answer.md\n  onrecord replay answer.md --sources ./release-2023-0412\n  onrecord replay --id 12 --csv > checked.csv"
+    )]
+    Replay {
+        /// The answer: JSON from `ask --json`, or Markdown with footnotes.
+        #[arg(
+            required_unless_present = "id",
+            conflicts_with = "id",
+            value_name = "FILE"
+        )]
+        file: Option<PathBuf>,
+        /// Replay answer N from the index's answer log (see `onrecord history`).
+        #[arg(long, value_name = "N")]
+        id: Option<u64>,
+        #[command(flatten)]
+        index: IndexArg,
+        /// Read pages straight from the original files in this folder
+        /// (re-extracted, no index needed) instead of the index. Document
+        /// ids come from a manifest in the folder or --manifest, else from
+        /// file names.
+        #[arg(long, value_name = "DIR")]
+        sources: Option<PathBuf>,
+        /// Manifest giving the document ids of the files under --sources.
+        #[arg(long, value_name = "FILE", requires = "sources")]
+        manifest: Option<PathBuf>,
+        /// How to read PDFs under --sources: as the index was ingested, so
+        /// that page fingerprints agree.
+        #[arg(long, value_enum, default_value_t = PdfRouteArg::Auto, requires = "sources")]
+        pdf_reader: PdfRouteArg,
+        /// The judge (default: the one that made the answer; rules for Markdown).
+        #[arg(long, value_enum)]
+        judge: Option<JudgeKind>,
+        #[command(flatten)]
+        export: ExportArgs,
     },
     /// List the documents in the index.
     Docs {
@@ -714,11 +813,7 @@ pub fn run() -> Result<ExitCode> {
                     overlap_tokens: chunk_overlap.min(chunk_tokens.saturating_sub(1)),
                 },
                 extract: ExtractOptions {
-                    pdf_route: match pdf_reader {
-                        PdfRouteArg::Auto => default_route(),
-                        PdfRouteArg::Pdftotext => PdfRoute::Pdftotext,
-                        PdfRouteArg::Builtin => PdfRoute::PureRust,
-                    },
+                    pdf_route: pdf_reader.route(),
                 },
                 manifest: m,
                 meta_override: DocMeta {
@@ -756,8 +851,9 @@ pub fn run() -> Result<ExitCode> {
             min_score,
             judge,
             draft,
-            json,
+            export,
         } => {
+            let json = export.json;
             let judge = judge.build();
             let opts = retrieval.resolve()?;
             let idx = open_index(&index.index, &choice, &opts)?;
@@ -780,8 +876,48 @@ pub fn run() -> Result<ExitCode> {
             } else {
                 ask_one(&idx, &question, &filters.resolve(), k, cfg, judge.as_ref())?
             };
-            print_answer(&a, json)?;
+            let logged = idx.store.log_answer(&a)?;
+            let mut out = std::io::stdout().lock();
+            match export.format() {
+                Export::Json => print_json(&a)?,
+                Export::Csv => onrecord::replay::table::write_answer(&a, &mut out)?,
+                Export::Markdown => {
+                    write!(out, "{}", onrecord::replay::markdown::render_answer(&a))?
+                }
+                Export::Text => {
+                    write!(out, "{}", answer::render_text(&a))?;
+                    writeln!(
+                        out,
+                        "\nLogged as answer {logged}; check it again later with: onrecord replay --id {logged}"
+                    )?;
+                }
+            }
             Ok(ExitCode::SUCCESS)
+        }
+        Command::History { index, limit, json } => cmd_history(&index.index, limit, json),
+        Command::Replay {
+            file,
+            id,
+            index,
+            sources,
+            manifest,
+            pdf_reader,
+            judge,
+            export,
+        } => {
+            let format = export.format();
+            cmd_replay(
+                ReplayArgs {
+                    file,
+                    id,
+                    index: index.index,
+                    sources,
+                    manifest,
+                    pdf_route: pdf_reader.route(),
+                    judge,
+                },
+                format,
+            )
         }
         Command::Docs {
             index,
@@ -1404,14 +1540,204 @@ fn print_json(v: &impl serde::Serialize) -> Result<()> {
     Ok(())
 }
 
-fn print_answer(a: &AnswerRecord, json: bool) -> Result<()> {
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Export {
+    Text,
+    Json,
+    Csv,
+    Markdown,
+}
+
+struct ReplayArgs {
+    file: Option<PathBuf>,
+    id: Option<u64>,
+    index: PathBuf,
+    sources: Option<PathBuf>,
+    manifest: Option<PathBuf>,
+    pdf_route: PdfRoute,
+    judge: Option<JudgeKind>,
+}
+
+/// Exit code for input replay cannot use.
+const UNUSABLE: u8 = 2;
+
+fn cmd_replay(args: ReplayArgs, format: Export) -> Result<ExitCode> {
+    use onrecord::replay::{self, PageSource, ReplayInput, SourceFiles, StorePages};
+    // Everything up to the verdicts: a failure here means nothing was checked.
+    let prepared = (|| -> Result<(replay::Claims, ReplayInput, Option<onrecord::store::Store>)> {
+        let (claims, input, store) = match (&args.file, args.id) {
+            (_, Some(id)) => {
+                let store = onrecord::store::Store::open(&args.index)?;
+                let json = store.logged_answer(id)?.with_context(|| {
+                    format!(
+                        "no answer {id} in the log at {} (see: onrecord history)",
+                        args.index.display()
+                    )
+                })?;
+                let a: AnswerRecord = serde_json::from_str(&json)
+                    .with_context(|| format!("answer {id} in the log is not readable"))?;
+                let input = ReplayInput {
+                    source: format!("answer log #{id}"),
+                    format: "json".into(),
+                    answer_id: Some(id),
+                    created_at: Some(a.created_at.clone()),
+                };
+                (replay::claims_from_record(&a), input, Some(store))
+            }
+            (Some(file), None) => {
+                let text = std::fs::read_to_string(file)
+                    .with_context(|| format!("cannot read {}", file.display()))?;
+                let (claims, format) = if text.trim_start().starts_with('{') {
+                    (read_answer_json(file, &text)?, "json")
+                } else {
+                    let c = replay::markdown::parse(&text)
+                        .map_err(|m| anyhow::anyhow!("{}: {m}", file.display()))?;
+                    (c, "markdown")
+                };
+                let input = ReplayInput {
+                    source: file.display().to_string(),
+                    format: format.into(),
+                    answer_id: None,
+                    created_at: claims.created_at.clone(),
+                };
+                (claims, input, None)
+            }
+            (None, None) => bail!("give an answer FILE or --id N"),
+        };
+        if claims.claims.is_empty() {
+            bail!(
+                "{}: nothing to replay: the answer has no verified sentence",
+                input.source
+            );
+        }
+        Ok((claims, input, store))
+    })();
+    let (claims, input, store) = match prepared {
+        Ok(p) => p,
+        Err(e) => {
+            eprintln!("error: {e:#}");
+            return Ok(ExitCode::from(UNUSABLE));
+        }
+    };
+    let judge = args
+        .judge
+        .or_else(|| {
+            claims.judge.as_deref().map(|j| {
+                if j.starts_with("learned") {
+                    JudgeKind::Learned
+                } else {
+                    JudgeKind::Rules
+                }
+            })
+        })
+        .unwrap_or_default()
+        .build();
+    let opened;
+    let mut pages: Box<dyn PageSource + '_> = match &args.sources {
+        Some(dir) => {
+            let earlier = match store {
+                Some(s) => Some(s),
+                None => onrecord::store::Store::open(&args.index).ok(),
+            };
+            match SourceFiles::open(dir, args.manifest.as_deref()) {
+                Ok(s) => Box::new(s.with_earlier_pages(earlier).with_extract(ExtractOptions {
+                    pdf_route: args.pdf_route,
+                })),
+                Err(e) => {
+                    eprintln!("error: {e}");
+                    return Ok(ExitCode::from(UNUSABLE));
+                }
+            }
+        }
+        None => {
+            opened = match store {
+                Some(s) => s,
+                None => match onrecord::store::Store::open(&args.index) {
+                    Ok(s) => s,
+                    Err(e) => {
+                        eprintln!("error: {e}");
+                        return Ok(ExitCode::from(UNUSABLE));
+                    }
+                },
+            };
+            Box::new(StorePages::new(&opened, &args.index))
+        }
+    };
+    let report = replay::replay(&claims, input, pages.as_mut(), judge.as_ref());
     let mut out = std::io::stdout().lock();
-    if json {
-        print_json(a)?;
-    } else {
-        write!(out, "{}", answer::render_text(a))?;
+    match format {
+        Export::Json => print_json(&report)?,
+        Export::Csv => replay::table::write_replay(&report, &mut out)?,
+        Export::Markdown => write!(out, "{}", replay::markdown::render_replay(&report))?,
+        Export::Text => write!(out, "{}", replay::render_text(&report))?,
     }
-    Ok(())
+    Ok(ExitCode::from(report.exit_code))
+}
+
+/// An answer record from `ask --json`, as claims to replay.
+fn read_answer_json(file: &std::path::Path, text: &str) -> Result<onrecord::replay::Claims> {
+    let v: serde_json::Value = serde_json::from_str(text)
+        .with_context(|| format!("{}: not valid JSON", file.display()))?;
+    match v.get("schema_version").and_then(serde_json::Value::as_u64) {
+        Some(n) if n == u64::from(answer::ANSWER_SCHEMA_VERSION) => {}
+        Some(n) => bail!(
+            "{}: answer record schema version {n}; this onrecord reads version {}",
+            file.display(),
+            answer::ANSWER_SCHEMA_VERSION
+        ),
+        None => bail!(
+            "{}: not an answer record (no schema_version); give JSON from `ask --json` or a Markdown answer",
+            file.display()
+        ),
+    }
+    let a: AnswerRecord = serde_json::from_value(v)
+        .with_context(|| format!("{}: not an answer record from `ask --json`", file.display()))?;
+    Ok(onrecord::replay::claims_from_record(&a))
+}
+
+fn cmd_history(index: &std::path::Path, limit: usize, json: bool) -> Result<ExitCode> {
+    let store = onrecord::store::Store::open(index)?;
+    let log = store.answer_log(limit)?;
+    if json {
+        print_json(&serde_json::json!({"index": index, "answers": log}))?;
+        return Ok(ExitCode::SUCCESS);
+    }
+    if log.is_empty() {
+        println!(
+            "No answers logged in {} yet; every `onrecord ask` is logged.",
+            index.display()
+        );
+        return Ok(ExitCode::SUCCESS);
+    }
+    let mut out = std::io::stdout().lock();
+    writeln!(
+        out,
+        "{:>5}  {:<20}  {:<16}  Question",
+        "#", "Asked (UTC)", "Sentences"
+    )?;
+    for e in &log {
+        let counts = if e.abstained {
+            "no answer".to_string()
+        } else if e.struck > 0 {
+            format!("{} ({} struck)", e.supported, e.struck)
+        } else {
+            e.supported.to_string()
+        };
+        let mut q: String = e.question.chars().take(60).collect();
+        if e.question.chars().count() > 60 {
+            q.push('…');
+        }
+        writeln!(
+            out,
+            "{:>5}  {:<20}  {:<16}  {}",
+            e.id,
+            e.created_at.replace('T', " ").trim_end_matches('Z'),
+            counts,
+            onrecord::text::fold_ws(&q)
+        )?;
+    }
+    writeln!(out, "\nCheck one again: onrecord replay --id N")?;
+    Ok(ExitCode::SUCCESS)
 }
 
 fn cmd_ingest(
@@ -1722,6 +2048,7 @@ fn cmd_demo(
             ExtractiveConfig::default(),
             &RulesJudge::default(),
         )?;
+        idx.store.log_answer(&a)?;
         if json {
             writeln!(out, "{}", serde_json::to_string(&a)?)?;
         } else {
@@ -1735,7 +2062,7 @@ fn cmd_demo(
         writeln!(out, "{}", answer::wrap(&format!("Caution: {CAUTION}"), 78))?;
         writeln!(
             out,
-            "\nThe demo records are invented (the Province of Kestrava does not exist).\nTry: onrecord ask \"...\" --index {}",
+            "\nThe demo records are invented (the Province of Kestrava does not exist).\nTry: onrecord ask \"...\" --index {0}\nCheck the answers above again later: onrecord history --index {0}, then onrecord replay --id N --index {0}",
             index.display()
         )?;
     }

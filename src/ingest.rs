@@ -134,6 +134,32 @@ pub fn slug(name: &str) -> String {
     if s.is_empty() { "doc".into() } else { s }
 }
 
+/// A document id from a file's name (its slug), with `-2`, `-3`, …
+/// appended while `taken` says the id is in use.
+pub fn id_from_file_name(
+    path: &Path,
+    mut taken: impl FnMut(&DocId) -> Result<bool>,
+) -> Result<DocId> {
+    let stem = path
+        .file_stem()
+        .map(|s| s.to_string_lossy().into_owned())
+        .unwrap_or_default();
+    let base = slug(&stem);
+    let mut candidate = DocId(base.clone());
+    let mut n = 2;
+    while taken(&candidate)? {
+        candidate = DocId(format!("{base}-{n}"));
+        n += 1;
+        if n > 10_000 {
+            return Err(Error::Invalid(format!(
+                "cannot find a free document id for {}",
+                path.display()
+            )));
+        }
+    }
+    Ok(candidate)
+}
+
 struct Run<'a> {
     store: &'a mut Store,
     cfg: &'a IngestConfig,
@@ -409,24 +435,7 @@ impl Run<'_> {
     }
 
     fn fresh_id(&self, canonical: &Path) -> Result<DocId> {
-        let stem = canonical
-            .file_stem()
-            .map(|s| s.to_string_lossy().into_owned())
-            .unwrap_or_default();
-        let base = slug(&stem);
-        let mut candidate = base.clone();
-        let mut n = 2;
-        while self.store.source_of(&DocId(candidate.clone()))?.is_some() {
-            candidate = format!("{base}-{n}");
-            n += 1;
-            if n > 10_000 {
-                return Err(Error::Invalid(format!(
-                    "cannot find a free document id for {}",
-                    canonical.display()
-                )));
-            }
-        }
-        Ok(DocId(candidate))
+        id_from_file_name(canonical, |id| Ok(self.store.source_of(id)?.is_some()))
     }
 }
 

@@ -21,6 +21,7 @@ pub mod ingest;
 pub mod llm;
 pub mod manifest;
 pub mod prompt;
+pub mod replay;
 pub mod retrieve;
 pub mod segment;
 pub mod store;

@@ -9,6 +9,9 @@
 //! invariant: chunk ids are never reused (AUTOINCREMENT).
 //! invariant: an embedding is stored once per (model, embedding key); a chunk
 //! whose embedding input is unchanged is never embedded again.
+//! invariant: the answer log is append-only; ingest, re-ingest and reindex
+//! never touch it, and the text of every page an answer cites is kept
+//! (by content hash) so a later replay can show what changed.
 
 use crate::chunk::Chunk;
 use crate::error::{Error, Result};
@@ -17,8 +20,9 @@ use rusqlite::{Connection, OptionalExtension, params};
 use std::path::{Path, PathBuf};
 
 /// Format version of the store. Bump on any incompatible schema change.
-/// Format 2 added embeddings; a format 1 store is upgraded in place.
-pub const STORE_FORMAT: u32 = 2;
+/// Format 2 added embeddings, format 3 the answer log; older stores are
+/// upgraded in place.
+pub const STORE_FORMAT: u32 = 3;
 pub const STORE_FILE: &str = "store.sqlite";
 
 const SCHEMA: &str = "
@@ -75,6 +79,37 @@ CREATE TABLE IF NOT EXISTS dropped_chunks (
     generation INTEGER NOT NULL
 );
 ";
+
+/// Tables added in format 3: the answer log, and the text of the pages its
+/// answers cite, keyed by content hash (kept when a re-ingest replaces the
+/// page).
+const SCHEMA_3: &str = "
+CREATE TABLE IF NOT EXISTS answers (
+    id INTEGER PRIMARY KEY AUTOINCREMENT,
+    created_at TEXT NOT NULL,
+    question TEXT NOT NULL,
+    config TEXT NOT NULL,
+    record TEXT NOT NULL
+);
+CREATE TABLE IF NOT EXISTS cited_pages (
+    hash TEXT PRIMARY KEY,
+    doc_id TEXT NOT NULL,
+    page INTEGER NOT NULL,
+    text TEXT NOT NULL
+);
+";
+
+/// One entry of the answer log, without its record.
+#[derive(Debug, Clone, serde::Serialize, serde::Deserialize, PartialEq)]
+pub struct LoggedAnswer {
+    pub id: u64,
+    pub created_at: String,
+    pub question: String,
+    pub config: serde_json::Value,
+    pub supported: usize,
+    pub struck: usize,
+    pub abstained: bool,
+}
 
 /// The text a chunk is embedded as: its document's title (when it is a real
 /// title, not the id standing in for one) and its text.
@@ -227,6 +262,16 @@ impl Store {
         tx.commit().map_err(e)
     }
 
+    /// Upgrade a format 2 store in place: add the answer log.
+    fn upgrade_from_2(&self) -> Result<()> {
+        let e = |e| Error::store(&self.path, e);
+        let tx = self.conn.unchecked_transaction().map_err(e)?;
+        tx.execute_batch(SCHEMA_3).map_err(e)?;
+        tx.execute("UPDATE meta SET value = '3' WHERE key = 'format'", [])
+            .map_err(e)?;
+        tx.commit().map_err(e)
+    }
+
     /// Open an existing store; a missing one is an error that says how to make one.
     pub fn open(dir: &Path) -> Result<Store> {
         let path = dir.join(STORE_FILE);
@@ -262,6 +307,7 @@ impl Store {
     fn init(&self) -> Result<()> {
         self.conn.execute_batch(SCHEMA).map_err(|e| self.err(e))?;
         self.conn.execute_batch(SCHEMA_2).map_err(|e| self.err(e))?;
+        self.conn.execute_batch(SCHEMA_3).map_err(|e| self.err(e))?;
         self.conn
             .execute(
                 "INSERT OR REPLACE INTO meta(key, value) VALUES ('format', ?1), ('generation', '0')",
@@ -281,7 +327,11 @@ impl Store {
             .unwrap_or(None);
         match found {
             Some(v) if v == STORE_FORMAT.to_string() => Ok(()),
-            Some(v) if v == "1" => self.upgrade_from_1(),
+            Some(v) if v == "1" => {
+                self.upgrade_from_1()?;
+                self.upgrade_from_2()
+            }
+            Some(v) if v == "2" => self.upgrade_from_2(),
             other => Err(Error::FormatMismatch {
                 path: self.path.clone(),
                 found: other.unwrap_or_else(|| "unknown (not an onrecord store)".into()),
@@ -565,19 +615,7 @@ impl Store {
             )
             .map_err(|e| self.err(e))?;
         let rows = stmt
-            .query_map([], |r| {
-                Ok(DocSummary {
-                    doc_id: DocId(r.get(0)?),
-                    title: r.get(1)?,
-                    organisation: r.get(2)?,
-                    date: r.get(3)?,
-                    release: r.get(4)?,
-                    url: r.get(5)?,
-                    kind: r.get(6)?,
-                    pages: r.get(7)?,
-                    source: r.get(8)?,
-                })
-            })
+            .query_map([], row_to_summary)
             .map_err(|e| self.err(e))?;
         rows.collect::<rusqlite::Result<Vec<_>>>()
             .map_err(|e| self.err(e))
@@ -724,6 +762,130 @@ impl Store {
         Ok(out)
     }
 
+    /// Append an answer to the log, with the text of every page it cites
+    /// (kept by content hash, so a replay after a re-ingest can show what
+    /// changed). Returns the entry's number.
+    pub fn log_answer(&self, record: &crate::answer::AnswerRecord) -> Result<u64> {
+        let e = |e| Error::store(&self.path, e);
+        let json = serde_json::to_string(record)
+            .map_err(|err| Error::Invalid(format!("answer record: {err}")))?;
+        let config = serde_json::to_string(&record.config)
+            .map_err(|err| Error::Invalid(format!("answer record: {err}")))?;
+        let tx = self.conn.unchecked_transaction().map_err(e)?;
+        tx.execute(
+            "INSERT INTO answers(created_at, question, config, record) VALUES (?1, ?2, ?3, ?4)",
+            params![record.created_at, record.question, config, json],
+        )
+        .map_err(e)?;
+        let id = tx.last_insert_rowid() as u64;
+        {
+            let mut keep = tx
+                .prepare_cached(
+                    "INSERT OR IGNORE INTO cited_pages(hash, doc_id, page, text)
+                     SELECT p.hash, d.doc_id, p.page, p.text FROM pages p
+                     JOIN documents d ON d.rowid = p.doc
+                     WHERE d.doc_id = ?1 AND p.page BETWEEN ?2 AND ?3",
+                )
+                .map_err(e)?;
+            let drafts = record.draft.iter().flat_map(|d| d.verdicts.iter());
+            for c in record
+                .sentences
+                .iter()
+                .chain(drafts)
+                .flat_map(|s| s.citations.iter())
+            {
+                keep.execute(params![c.doc_id.0, c.page, c.end_page.unwrap_or(c.page)])
+                    .map_err(e)?;
+            }
+        }
+        tx.commit().map_err(e)?;
+        Ok(id)
+    }
+
+    /// The answer log, newest first (at most `limit` entries).
+    pub fn answer_log(&self, limit: usize) -> Result<Vec<LoggedAnswer>> {
+        let mut stmt = self
+            .conn
+            .prepare(
+                "SELECT id, created_at, question, config, record FROM answers
+                 ORDER BY id DESC LIMIT ?1",
+            )
+            .map_err(|e| self.err(e))?;
+        let rows = stmt
+            .query_map(params![limit.min(i64::MAX as usize) as i64], |r| {
+                Ok((
+                    r.get::<_, i64>(0)?,
+                    r.get::<_, String>(1)?,
+                    r.get::<_, String>(2)?,
+                    r.get::<_, String>(3)?,
+                    r.get::<_, String>(4)?,
+                ))
+            })
+            .map_err(|e| self.err(e))?;
+        let mut out = Vec::new();
+        for row in rows {
+            let (id, created_at, question, config, record) = row.map_err(|e| self.err(e))?;
+            let record: serde_json::Value = serde_json::from_str(&record).unwrap_or_default();
+            let count = |verdict: &str| {
+                record["sentences"]
+                    .as_array()
+                    .map_or(0, |a| a.iter().filter(|s| s["verdict"] == verdict).count())
+            };
+            out.push(LoggedAnswer {
+                id: id as u64,
+                created_at,
+                question,
+                config: serde_json::from_str(&config).unwrap_or_default(),
+                supported: count("supported"),
+                struck: count("struck"),
+                abstained: record["abstained"].as_bool().unwrap_or(false),
+            });
+        }
+        Ok(out)
+    }
+
+    /// The answer record (JSON) logged as entry `id`.
+    pub fn logged_answer(&self, id: u64) -> Result<Option<String>> {
+        self.conn
+            .query_row(
+                "SELECT record FROM answers WHERE id = ?1",
+                params![id as i64],
+                |r| r.get(0),
+            )
+            .optional()
+            .map_err(|e| self.err(e))
+    }
+
+    /// A page's text as it was when an answer cited it, by content hash or a
+    /// prefix of it (at least 8 hex digits): (document, page, text).
+    pub fn cited_page(&self, hash_prefix: &str) -> Result<Option<(DocId, u32, String)>> {
+        if hash_prefix.len() < 8 {
+            return Ok(None);
+        }
+        self.conn
+            .query_row(
+                "SELECT doc_id, page, text FROM cited_pages
+                 WHERE substr(hash, 1, length(?1)) = lower(?1) LIMIT 1",
+                params![hash_prefix],
+                |r| Ok((DocId(r.get(0)?), r.get(1)?, r.get(2)?)),
+            )
+            .optional()
+            .map_err(|e| self.err(e))
+    }
+
+    /// One document's summary row.
+    pub fn document(&self, doc_id: &DocId) -> Result<Option<DocSummary>> {
+        self.conn
+            .query_row(
+                "SELECT doc_id, title, organisation, date, release, url, kind, page_count, source
+                 FROM documents WHERE doc_id = ?1",
+                params![doc_id.0],
+                row_to_summary,
+            )
+            .optional()
+            .map_err(|e| self.err(e))
+    }
+
     /// (documents, pages, chunks)
     pub fn counts(&self) -> Result<(u64, u64, u64)> {
         self.conn
@@ -737,6 +899,20 @@ impl Store {
             )
             .map_err(|e| self.err(e))
     }
+}
+
+fn row_to_summary(r: &rusqlite::Row<'_>) -> rusqlite::Result<DocSummary> {
+    Ok(DocSummary {
+        doc_id: DocId(r.get(0)?),
+        title: r.get(1)?,
+        organisation: r.get(2)?,
+        date: r.get(3)?,
+        release: r.get(4)?,
+        url: r.get(5)?,
+        kind: r.get(6)?,
+        pages: r.get(7)?,
+        source: r.get(8)?,
+    })
 }
 
 fn row_to_chunk(r: &rusqlite::Row<'_>) -> rusqlite::Result<StoredChunk> {

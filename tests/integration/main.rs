@@ -8,6 +8,7 @@ mod drafting;
 mod endpoint;
 mod ingest;
 mod open_data;
+mod replay;
 mod retrieval;
 mod support;
 mod verifier;

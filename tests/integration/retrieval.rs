@@ -378,6 +378,7 @@ fn a_format_1_store_is_upgraded_in_place() {
         // Freeze it back to format 1.
         conn.execute_batch(
             "DROP TABLE embeddings; DROP TABLE dropped_chunks;
+             DROP TABLE answers; DROP TABLE cited_pages;
              ALTER TABLE chunks DROP COLUMN embed_key;
              UPDATE meta SET value = '1' WHERE key = 'format';",
         )
@@ -398,4 +399,9 @@ fn a_format_1_store_is_upgraded_in_place() {
         })
         .unwrap();
     assert_eq!(format, onrecord::store::STORE_FORMAT.to_string());
+    // Format 3's answer log is there too.
+    let logged: i64 = conn
+        .query_row("SELECT count(*) FROM answers", [], |r| r.get(0))
+        .unwrap();
+    assert_eq!(logged, 0);
 }

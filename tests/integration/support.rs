@@ -52,7 +52,8 @@ pub fn ingest_with(
 }
 
 /// Check `v` against the subset of JSON Schema the project's schema files
-/// use (type, required, properties, items, enum, const). Returns the
+/// use (type, required, properties, additionalProperties: false, items,
+/// enum, const). Returns the
 /// problems found, each with its JSON path.
 pub fn schema_problems(v: &serde_json::Value, schema: &serde_json::Value, at: &str) -> Vec<String> {
     use serde_json::Value;
@@ -96,6 +97,11 @@ pub fn schema_problems(v: &serde_json::Value, schema: &serde_json::Value, at: &s
         for (k, sub) in props {
             if let Some(val) = obj.get(k) {
                 out.extend(schema_problems(val, sub, &format!("{at}.{k}")));
+            }
+        }
+        if schema.get("additionalProperties") == Some(&Value::Bool(false)) {
+            for k in obj.keys().filter(|k| !props.contains_key(*k)) {
+                out.push(format!("{at}: `{k}` is not in the schema"));
             }
         }
     }

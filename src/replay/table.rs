@@ -1,0 +1,118 @@
+//! CSV exports (RFC 4180: comma-separated, CRLF line ends, fields with a
+//! comma, quote or line break in double quotes, quotes doubled), one row
+//! per sentence and quote, for editors' spreadsheets.
+
+use super::{CitedQuote, ReplayReport, fingerprint};
+use crate::answer::AnswerRecord;
+use crate::verify::VerifiedSentence;
+use std::io::Write;
+
+/// The columns, in order.
+pub const COLUMNS: [&str; 11] = [
+    "question",
+    "sentence",
+    "verdict",
+    "reason",
+    "doc_id",
+    "title",
+    "organisation",
+    "date",
+    "page",
+    "quote",
+    "fingerprint",
+];
+
+fn writer<W: Write>(out: W) -> csv::Writer<W> {
+    csv::WriterBuilder::new()
+        .terminator(csv::Terminator::CRLF)
+        .quote_style(csv::QuoteStyle::Necessary)
+        .from_writer(out)
+}
+
+fn pages(page: u32, end: Option<u32>) -> String {
+    match end {
+        Some(e) if e != page => format!("{page}-{e}"),
+        _ => page.to_string(),
+    }
+}
+
+fn row<W: Write>(
+    w: &mut csv::Writer<W>,
+    lead: [&str; 4],
+    c: Option<&CitedQuote>,
+) -> csv::Result<()> {
+    let cite: [String; 7] = match c {
+        Some(c) => [
+            c.doc_id.0.clone(),
+            c.title.clone().unwrap_or_default(),
+            c.organisation.clone().unwrap_or_default(),
+            c.date.clone().unwrap_or_default(),
+            pages(c.page, c.end_page),
+            c.quote.clone(),
+            c.fingerprint
+                .as_deref()
+                .map(|f| fingerprint(f).to_string())
+                .unwrap_or_default(),
+        ],
+        None => Default::default(),
+    };
+    w.write_record(lead.iter().copied().chain(cite.iter().map(String::as_str)))
+}
+
+fn sentence_rows<W: Write>(
+    w: &mut csv::Writer<W>,
+    question: &str,
+    s: &VerifiedSentence,
+) -> csv::Result<()> {
+    let verdict = match s.verdict {
+        crate::verify::Verdict::Supported => "supported",
+        crate::verify::Verdict::Struck => "struck",
+    };
+    let reason = s.reason.as_deref().unwrap_or("");
+    let lead = [question, s.text.as_str(), verdict, reason];
+    if s.citations.is_empty() {
+        return row(w, lead, None);
+    }
+    for c in &s.citations {
+        row(w, lead, Some(&CitedQuote::from(c)))?;
+    }
+    Ok(())
+}
+
+/// An answer as CSV: every sentence the drafter wrote, supported or struck,
+/// one row per quote (a sentence without citations gets one row).
+pub fn write_answer<W: Write>(a: &AnswerRecord, out: W) -> csv::Result<()> {
+    let mut w = writer(out);
+    w.write_record(COLUMNS)?;
+    for s in &a.sentences {
+        sentence_rows(&mut w, &a.question, s)?;
+    }
+    if let Some(d) = &a.draft {
+        for s in &d.verdicts {
+            sentence_rows(&mut w, &a.question, s)?;
+        }
+    }
+    w.flush()?;
+    Ok(())
+}
+
+/// A replay report as CSV: each sentence's replay verdict, one row per
+/// quote. Organisation and date come from the answer, else from the
+/// source as it is now.
+pub fn write_replay<W: Write>(r: &ReplayReport, out: W) -> csv::Result<()> {
+    let mut w = writer(out);
+    w.write_record(COLUMNS)?;
+    let question = r.question.as_deref().unwrap_or("");
+    for s in &r.sentences {
+        let reason = s.reason.as_deref().unwrap_or("");
+        let lead = [question, s.text.as_str(), s.verdict.label(), reason];
+        if s.citations.is_empty() {
+            row(&mut w, lead, None)?;
+        }
+        for c in &s.citations {
+            row(&mut w, lead, Some(&c.cited))?;
+        }
+    }
+    w.flush()?;
+    Ok(())
+}
