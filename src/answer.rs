@@ -10,7 +10,8 @@
 //! the page hash), `abstained`, `abstain_reason` and `caution`; when a
 //! language model drafted, `draft` (the model's raw text, its costs, and —
 //! if the answer fell back to the extractive drafter — the model's own
-//! verdicts and the reason), and with `--rewrite`, `queries`.
+//! verdicts and the reason), with `--rewrite`, `queries`, and `timings`
+//! (milliseconds per stage).
 //!
 //! invariant: no sentence reaches the answer without passing the verifier.
 //! invariant: a fallback answer is marked as one, and the struck model
@@ -79,7 +80,21 @@ pub struct AnswerRecord {
     /// Extra search queries a model proposed (`--rewrite`), fused with the question.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub queries: Vec<String>,
+    /// How long each stage took.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub timings: Option<Timings>,
     pub caution: String,
+}
+
+/// Wall-clock milliseconds per stage of one answer. A model fallback's
+/// second draft and verification count in `draft_ms` and `verify_ms`.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Serialize, Deserialize)]
+pub struct Timings {
+    /// Query rewriting (if any) and retrieval.
+    pub retrieve_ms: f64,
+    pub draft_ms: f64,
+    pub verify_ms: f64,
+    pub total_ms: f64,
 }
 
 /// A language model's draft as it was written and as the verifier judged it.
@@ -259,12 +274,16 @@ pub fn gather(
 
 /// Run the whole chain for one question, with the plan's options.
 pub fn ask_with(index: &Index, question: &str, plan: AskPlan<'_>) -> Result<AnswerRecord> {
+    let started = std::time::Instant::now();
+    let ms = |t: std::time::Instant| t.elapsed().as_secs_f64() * 1000.0;
+    let mut timings = Timings::default();
     let queries = match plan.rewrite {
         Some(m) => rewrite_queries(m, question)?,
         None => vec![],
     };
     let retrieved = gather(index, question, &queries, plan.filters, plan.k)?;
     let query_terms = index.query_terms(question)?;
+    timings.retrieve_ms = ms(started);
     let req = DraftRequest {
         question,
         retrieved: &retrieved,
@@ -276,8 +295,12 @@ pub fn ask_with(index: &Index, question: &str, plan: AskPlan<'_>) -> Result<Answ
         .collect();
     let store = &index.store;
     let page_hash = |d: &DocId, p: u32| store.page(d, p).ok().flatten().map(|(_, h)| h);
+    let t = std::time::Instant::now();
     let mut draft = plan.drafter.draft(&req)?;
+    timings.draft_ms = ms(t);
+    let t = std::time::Instant::now();
     let mut sentences = verify(&draft, &chunks, plan.judge, &page_hash);
+    timings.verify_ms = ms(t);
     let mut drafter_name = plan.drafter.name();
     let mut draft_record = draft.model.take().map(|model| DraftRecord {
         model,
@@ -300,8 +323,12 @@ pub fn ask_with(index: &Index, question: &str, plan: AskPlan<'_>) -> Result<Answ
             fb.name()
         ));
         rec.verdicts = std::mem::take(&mut sentences);
+        let t = std::time::Instant::now();
         draft = fb.draft(&req)?;
+        timings.draft_ms += ms(t);
+        let t = std::time::Instant::now();
         sentences = verify(&draft, &chunks, plan.judge, &page_hash);
+        timings.verify_ms += ms(t);
         drafter_name = format!("{} (fallback from {})", fb.name(), drafter_name);
     }
     let any_supported = supported(&sentences);
@@ -345,6 +372,10 @@ pub fn ask_with(index: &Index, question: &str, plan: AskPlan<'_>) -> Result<Answ
         draft: draft_record,
         queries,
         sentences,
+        timings: Some(Timings {
+            total_ms: ms(started),
+            ..timings
+        }),
         caution: CAUTION.into(),
     })
 }

@@ -629,6 +629,20 @@ struct FusionArgs {
 
 #[derive(Subcommand, Debug)]
 enum EvalCommand {
+    /// Run a question set under one or more configurations, side by side,
+    /// and write a report an editor can read.
+    ///
+    /// Scores retrieval (recall@k, MRR@10, nDCG@10 by page and by document),
+    /// answers (SQuAD v1.1 exact match and F1, gold answer in a verified
+    /// sentence), abstention, citations (against gold pages, and ALCE with a
+    /// second judge), strikes and their reasons, and time per stage; for
+    /// each pair of configurations, the difference in each metric with a
+    /// paired bootstrap 95% interval. Writes report.html (self-contained,
+    /// works offline), report.json and summary.md to --report.
+    #[command(
+        after_help = "Examples:\n  onrecord eval run eval/demo/questions.jsonl\n  onrecord eval run my-questions.jsonl --index ./release-index --config a.toml --config b.toml\n  onrecord eval run ../shared/data/squad-v1.1/dev-v1.1.json --articles 1-2 --limit 100\n  onrecord eval run ../shared/data/scifact --limit 100   (BEIR layout: retrieval only)"
+    )]
+    Run(EvalRunArgs),
     /// Retrieval quality on a BEIR-layout collection: nDCG@10, recall@100, MRR@10.
     Retrieval {
         /// Folder with corpus.jsonl, queries.jsonl and qrels/<split>.tsv.
@@ -876,7 +890,15 @@ pub fn run() -> Result<ExitCode> {
             } else {
                 ask_one(&idx, &question, &filters.resolve(), k, cfg, judge.as_ref())?
             };
-            let logged = idx.store.log_answer(&a)?;
+            // The answer stands even when the log cannot take it (a
+            // read-only index, say); the reader is told.
+            let logged = match idx.store.log_answer(&a) {
+                Ok(n) => Some(n),
+                Err(e) => {
+                    eprintln!("warning: the answer was not logged: {e}");
+                    None
+                }
+            };
             let mut out = std::io::stdout().lock();
             match export.format() {
                 Export::Json => print_json(&a)?,
@@ -886,10 +908,12 @@ pub fn run() -> Result<ExitCode> {
                 }
                 Export::Text => {
                     write!(out, "{}", answer::render_text(&a))?;
-                    writeln!(
-                        out,
-                        "\nLogged as answer {logged}; check it again later with: onrecord replay --id {logged}"
-                    )?;
+                    if let Some(n) = logged {
+                        writeln!(
+                            out,
+                            "\nLogged as answer {n}; check it again later with: onrecord replay --id {n}"
+                        )?;
+                    }
                 }
             }
             Ok(ExitCode::SUCCESS)
@@ -992,6 +1016,7 @@ pub fn run() -> Result<ExitCode> {
             print_json(&report)?;
             Ok(ExitCode::SUCCESS)
         }
+        Command::Eval(EvalCommand::Run(args)) => cmd_eval_run(args, &choice),
         Command::Eval(EvalCommand::Abstention { squad, cap, json }) => {
             cmd_eval_abstention(&squad, cap, json)
         }
@@ -1061,6 +1086,171 @@ pub fn run() -> Result<ExitCode> {
             cmd_eval_retrieval(&beir, &split, &choice, &kinds, weights, chunk, json)
         }
     }
+}
+
+#[derive(Args, Debug)]
+struct EvalRunArgs {
+    /// Questions: our JSON Lines file, a BEIR-layout folder, or a SQuAD
+    /// v1.1 JSON file.
+    questions: PathBuf,
+    /// A configuration file (repeat to compare); default: every file in
+    /// eval/configs.
+    #[arg(long = "config", value_name = "FILE")]
+    configs: Vec<PathBuf>,
+    /// Where to write report.html, report.json and summary.md.
+    #[arg(long, default_value = "eval-report", value_name = "DIR")]
+    report: PathBuf,
+    /// The index the questions are about (JSON Lines sets). Default: the
+    /// demo index when the set sits beside the demo sources, else
+    /// ./.onrecord or ONRECORD_INDEX.
+    #[arg(long, value_name = "DIR")]
+    index: Option<PathBuf>,
+    /// Where the demo release and its index are built.
+    #[arg(long, default_value = ".onrecord-demo", value_name = "DIR")]
+    workdir: PathBuf,
+    /// The layout of QUESTIONS.
+    #[arg(long, value_enum, default_value_t = onrecord::eval::questions::SetFormat::Auto)]
+    format: onrecord::eval::questions::SetFormat,
+    /// BEIR qrels split.
+    #[arg(long, default_value = "test")]
+    split: String,
+    /// SQuAD articles to use (1-based, inclusive).
+    #[arg(long, default_value = "1-2", value_parser = parse_articles, value_name = "A-B")]
+    articles: std::ops::RangeInclusive<usize>,
+    /// At most this many questions, taken evenly through the set (0: all).
+    #[arg(long, default_value_t = 0, value_name = "N")]
+    limit: usize,
+    /// Bootstrap seed.
+    #[arg(long, default_value_t = onrecord::eval::bootstrap::SEED)]
+    seed: u64,
+    /// Bootstrap resamples.
+    #[arg(long, default_value_t = onrecord::eval::bootstrap::RESAMPLES)]
+    resamples: usize,
+    /// Print the report as JSON instead of the summary.
+    #[arg(long)]
+    json: bool,
+    /// No progress bar.
+    #[arg(short, long)]
+    quiet: bool,
+}
+
+fn cmd_eval_run(args: EvalRunArgs, choice: &EmbedderChoice) -> Result<ExitCode> {
+    use onrecord::eval::run::{self as harness, EvalConfig, Skipped};
+    let json = args.json;
+    let progress = !args.quiet && !json && std::io::stderr().is_terminal();
+    let adapter = onrecord::eval::questions::AdapterOptions {
+        split: args.split.clone(),
+        articles: args.articles.clone(),
+        limit: args.limit,
+    };
+    let set = onrecord::eval::questions::load(&args.questions, args.format, &adapter)?;
+    let files = if args.configs.is_empty() {
+        harness::configs_in(&harness::default_configs_dir())?
+    } else {
+        args.configs.clone()
+    };
+    if files.is_empty() {
+        bail!("no configuration files: give --config FILE (see eval/configs for examples)");
+    }
+    let mut configs = Vec::new();
+    for f in &files {
+        configs.push((EvalConfig::read(f)?, f.display().to_string()));
+    }
+    // The corpus: the set's own (ingested once under the report folder), an
+    // index, or the demo release beside the questions.
+    let (index_dir, corpus) = match (set.corpus, &args.index) {
+        (Some(docs), _) => {
+            let dir = args.report.join("index");
+            let n = docs.len();
+            onrecord::ingest::ingest_docs(
+                &dir,
+                docs,
+                onrecord::chunk::ChunkConfig::default(),
+                progress.then_some(n as u64),
+            )?;
+            let corpus = format!("{n} documents from {}", args.questions.display());
+            (dir, corpus)
+        }
+        (None, Some(dir)) => (dir.clone(), format!("index {}", dir.display())),
+        (None, None) => match args.questions.parent() {
+            Some(p) if onrecord::demo::is_source_dir(p) => {
+                let (dir, _) = demo_index(p, &args.workdir, progress)?;
+                (dir, format!("the demo release from {}", p.display()))
+            }
+            _ => {
+                let dir = std::env::var_os("ONRECORD_INDEX")
+                    .map(PathBuf::from)
+                    .unwrap_or_else(|| PathBuf::from(".onrecord"));
+                let corpus = format!("index {}", dir.display());
+                (dir, corpus)
+            }
+        },
+    };
+    let wants_vectors = configs
+        .iter()
+        .any(|(c, _)| c.retriever_kind().is_ok_and(|k| k != RetrieverKind::Bm25));
+    let embedder = if wants_vectors {
+        load_embedder(choice)?
+    } else {
+        None
+    };
+    if let Some(e) = &embedder {
+        onrecord::vectors::update(&index_dir, e.as_ref(), progress)?;
+    }
+    let mut idx = Index::open_with(&index_dir, embedder)?;
+    let mut prepared = Vec::new();
+    let mut skipped = Vec::new();
+    for (c, file) in configs {
+        let kind = c.retriever_kind().map_err(anyhow::Error::msg)?;
+        let opts = SearchOptions {
+            retriever: Some(kind),
+            ..Default::default()
+        };
+        if idx.effective(&opts) != kind {
+            let reason = format!(
+                "needs an embedding model for {} retrieval, and none is on this machine (see README, \"Embedding model\")",
+                kind.name()
+            );
+            eprintln!("Not running {} ({file}): {reason}", c.name);
+            skipped.push(Skipped {
+                name: c.name.clone(),
+                file,
+                reason,
+            });
+            continue;
+        }
+        prepared.push(harness::prepare(c, file)?);
+    }
+    if prepared.is_empty() {
+        bail!("no configuration can run here");
+    }
+    let report = harness::run(
+        &mut idx,
+        prepared,
+        skipped,
+        harness::RunPlan {
+            question_set: args.questions.display().to_string(),
+            corpus,
+            questions: &set.questions,
+            resamples: args.resamples,
+            seed: args.seed,
+            progress,
+        },
+    )?;
+    onrecord::eval::report::write_all(&report, &args.report)?;
+    if json {
+        print_json(&report)?;
+    } else {
+        print!("{}", onrecord::eval::report::markdown(&report));
+        println!(
+            "\nReport: {} (also report.json and summary.md there)",
+            args.report.join("report.html").display()
+        );
+    }
+    for w in &report.warnings {
+        eprintln!("warning: {w}");
+    }
+    Ok(ExitCode::SUCCESS)
 }
 
 fn cmd_eval_verifier(
@@ -1983,6 +2173,20 @@ fn cmd_docs(index: &std::path::Path, filters: &Filters, json: bool) -> Result<Ex
     Ok(ExitCode::SUCCESS)
 }
 
+/// Build and ingest the demo release, printing what went wrong with any file.
+fn demo_index(
+    source: &std::path::Path,
+    workdir: &std::path::Path,
+    progress: bool,
+) -> Result<(PathBuf, ingest::Report)> {
+    eprintln!("Building the demo release from {} ...", source.display());
+    let (index, report, diags) = onrecord::demo::prepare(source, workdir, progress)?;
+    for d in diags.iter().filter(|d| d.severity != Severity::Note) {
+        eprintln!("{d}");
+    }
+    Ok((index, report))
+}
+
 fn cmd_demo(
     source: Option<PathBuf>,
     workdir: &std::path::Path,
@@ -1990,28 +2194,11 @@ fn cmd_demo(
     json: bool,
 ) -> Result<ExitCode> {
     let source = source.unwrap_or_else(onrecord::demo::default_source_dir);
-    let release = workdir.join("release");
-    let index = workdir.join("index");
-    let mut err = std::io::stderr().lock();
-    writeln!(
-        err,
-        "Building the demo release from {} ...",
-        source.display()
-    )?;
-    let manifest = onrecord::demo::build(&source, &release)?;
-    let cfg = IngestConfig {
-        manifest: Manifest::load(&manifest)?,
-        progress: !json && std::io::stderr().is_terminal(),
-        ..Default::default()
-    };
-    let (report, diags) = ingest::ingest_paths(&index, std::slice::from_ref(&release), &cfg)?;
-    for d in diags.iter().filter(|d| d.severity != Severity::Note) {
-        writeln!(err, "{d}")?;
-    }
-    drop(err);
+    let progress = !json && std::io::stderr().is_terminal();
+    let (index, report) = demo_index(&source, workdir, progress)?;
     let embedder = load_embedder(choice)?;
     if let Some(e) = &embedder {
-        onrecord::vectors::update(&index, e.as_ref(), cfg.progress)?;
+        onrecord::vectors::update(&index, e.as_ref(), progress)?;
     }
     let idx = Index::open_with(&index, embedder)?;
     for n in &idx.notes {

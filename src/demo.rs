@@ -104,6 +104,36 @@ pub fn build(source: &Path, out: &Path) -> Result<PathBuf> {
     Ok(mpath)
 }
 
+/// Render the demo release under `workdir/release` and ingest it into
+/// `workdir/index` (files already up to date are left alone). Returns the
+/// index folder, the ingest report and its diagnostics.
+pub fn prepare(
+    source: &Path,
+    workdir: &Path,
+    progress: bool,
+) -> Result<(
+    PathBuf,
+    crate::ingest::Report,
+    Vec<crate::ingest::Diagnostic>,
+)> {
+    let release = workdir.join("release");
+    let index = workdir.join("index");
+    let manifest = build(source, &release)?;
+    let cfg = crate::ingest::IngestConfig {
+        manifest: crate::manifest::Manifest::load(&manifest)?,
+        progress,
+        ..Default::default()
+    };
+    let (report, diags) =
+        crate::ingest::ingest_paths(&index, std::slice::from_ref(&release), &cfg)?;
+    Ok((index, report, diags))
+}
+
+/// Whether `dir` holds demo sources (a `manifest.jsonl` and `docs/`).
+pub fn is_source_dir(dir: &Path) -> bool {
+    dir.join("manifest.jsonl").is_file() && dir.join("docs").is_dir()
+}
+
 fn up_to_date(src: &Path, dst: &Path) -> bool {
     let m = |p: &Path| std::fs::metadata(p).and_then(|m| m.modified()).ok();
     matches!((m(src), m(dst)), (Some(s), Some(d)) if d >= s)

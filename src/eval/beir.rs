@@ -100,10 +100,13 @@ pub fn load_qrels(path: &Path) -> Result<HashMap<String, Qrels>> {
 }
 
 /// Judged queries as (query id, text).
-type Queries = Vec<(String, String)>;
+pub(crate) type Queries = Vec<(String, String)>;
 
 /// The qrels, the judged queries, and the corpus as one-page in-memory documents.
-fn load(dir: &Path, split: &str) -> Result<(HashMap<String, Qrels>, Queries, Vec<MemDoc>)> {
+pub(crate) fn load(
+    dir: &Path,
+    split: &str,
+) -> Result<(HashMap<String, Qrels>, Queries, Vec<MemDoc>)> {
     let qrels = load_qrels(&dir.join("qrels").join(format!("{split}.tsv")))?;
     let mut queries: Vec<(String, String)> = Vec::new();
     read_jsonl(&dir.join("queries.jsonl"), |_, v| {

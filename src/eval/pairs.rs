@@ -12,6 +12,7 @@
 //!
 //! invariant: generation is deterministic for a given input and seed.
 
+use super::Rng;
 use crate::error::{Error, Result};
 use crate::verify::{Evidence, Judge};
 use serde::{Deserialize, Serialize};
@@ -278,27 +279,6 @@ struct SquadQa {
 struct SquadAnswer {
     text: String,
     answer_start: usize,
-}
-
-/// A small deterministic generator (SplitMix64).
-struct Rng(u64);
-
-impl Rng {
-    fn new(seed: u64, a: usize, b: usize) -> Rng {
-        Rng(seed
-            ^ (a as u64).wrapping_mul(0x9E37_79B9_7F4A_7C15)
-            ^ (b as u64).wrapping_mul(0xC2B2_AE3D_27D4_EB4F))
-    }
-    fn next(&mut self) -> u64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^ (z >> 31)
-    }
-    fn below(&mut self, n: usize) -> usize {
-        (self.next() % n.max(1) as u64) as usize
-    }
 }
 
 /// Parse "A-B" (1-based, inclusive).

@@ -19,31 +19,43 @@ use std::ops::RangeInclusive;
 use std::path::Path;
 
 #[derive(Deserialize)]
-struct File {
-    data: Vec<Article>,
+pub(crate) struct File {
+    pub(crate) data: Vec<Article>,
 }
 
 #[derive(Deserialize)]
-struct Article {
-    title: String,
-    paragraphs: Vec<Paragraph>,
+pub(crate) struct Article {
+    pub(crate) title: String,
+    pub(crate) paragraphs: Vec<Paragraph>,
 }
 
 #[derive(Deserialize)]
-struct Paragraph {
-    context: String,
-    qas: Vec<Qa>,
+pub(crate) struct Paragraph {
+    pub(crate) context: String,
+    pub(crate) qas: Vec<Qa>,
 }
 
 #[derive(Deserialize)]
-struct Qa {
-    question: String,
-    answers: Vec<Answer>,
+pub(crate) struct Qa {
+    #[serde(default)]
+    pub(crate) id: String,
+    pub(crate) question: String,
+    pub(crate) answers: Vec<Answer>,
 }
 
 #[derive(Deserialize)]
-struct Answer {
-    text: String,
+pub(crate) struct Answer {
+    pub(crate) text: String,
+}
+
+/// Read a SQuAD v1.1 file.
+pub(crate) fn read_file(path: &Path) -> Result<File> {
+    let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;
+    serde_json::from_str(&text).map_err(|e| Error::BadInput {
+        path: path.to_path_buf(),
+        line: e.line(),
+        message: e.to_string(),
+    })
 }
 
 /// One question's outcome with abstention switched off.
@@ -114,12 +126,7 @@ pub fn score_range(
     cap: usize,
     index_dir: &Path,
 ) -> Result<Vec<Scored>> {
-    let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, e))?;
-    let file: File = serde_json::from_str(&text).map_err(|e| Error::BadInput {
-        path: path.to_path_buf(),
-        line: e.line(),
-        message: e.to_string(),
-    })?;
+    let file = read_file(path)?;
     let mut docs = Vec::new();
     let mut answerable = Vec::new();
     let mut unanswerable = Vec::new();

@@ -6,6 +6,7 @@ mod cli;
 mod demo;
 mod drafting;
 mod endpoint;
+mod eval_run;
 mod ingest;
 mod open_data;
 mod replay;
