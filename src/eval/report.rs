@@ -238,31 +238,30 @@ pub fn html(r: &EvalReport) -> String {
         }
         h.push_str("</tr>\n");
     }
-    for (label, f) in [
-        (
-            "end-to-end p50 (ms)",
-            (|c: &super::run::ConfigRun| c.latency.total.p50) as fn(&super::run::ConfigRun) -> f64,
-        ),
-        ("end-to-end p95 (ms)", |c| c.latency.total.p95),
-        ("retrieve p50 / p95 (ms)", |c| c.latency.retrieve.p50),
-        ("draft p50 (ms)", |c| c.latency.draft.p50),
-        ("verify p50 (ms)", |c| c.latency.verify.p50),
-        ("tokens generated", |c| c.latency.generated_tokens as f64),
-    ] {
-        let _ = write!(h, "<tr><th scope=\"row\">{}</th>", esc(label));
+    type Stage = fn(&super::run::Latency) -> super::run::Spread;
+    let stages: [(&str, Stage); 4] = [
+        ("retrieve", |l| l.retrieve),
+        ("draft", |l| l.draft),
+        ("verify", |l| l.verify),
+        ("end to end", |l| l.total),
+    ];
+    for (label, stage) in stages {
+        let _ = write!(
+            h,
+            "<tr><th scope=\"row\">{} p50 / p95 (ms)</th>",
+            esc(label)
+        );
         for c in &r.configs {
-            let v = if label.starts_with("retrieve") {
-                format!(
-                    "{:.1} / {:.1}",
-                    c.latency.retrieve.p50, c.latency.retrieve.p95
-                )
-            } else {
-                format!("{:.1}", f(c))
-            };
-            let _ = write!(h, "<td class=\"num\">{v}</td>");
+            let s = stage(&c.latency);
+            let _ = write!(h, "<td class=\"num\">{:.1} / {:.1}</td>", s.p50, s.p95);
         }
         h.push_str("</tr>\n");
     }
+    h.push_str("<tr><th scope=\"row\">tokens generated</th>");
+    for c in &r.configs {
+        let _ = write!(h, "<td class=\"num\">{}</td>", c.latency.generated_tokens);
+    }
+    h.push_str("</tr>\n");
     h.push_str("</tbody>\n</table>\n");
     h.push_str("<p>Retrieval figures count a page (or document) as found when any retrieved passage lies on it; k is each configuration's own. Answer figures follow the SQuAD v1.1 evaluation (lower case, no punctuation or articles). Citation precision and recall compare cited pages with the gold pages; the ALCE figures ask a second judge whether each sentence's citations support it (recall) and whether each citation is needed (precision).</p>\n");
 

@@ -509,6 +509,17 @@ fn check_citation(c: &CitedQuote, pages: &mut dyn PageSource) -> (CitationCheck,
             return (check, None);
         }
     };
+    // A draft's footnote may leave out the title, organisation and date;
+    // the document as it is now fills them in for the report and the CSV.
+    if check.cited.title.is_none() {
+        check.cited.title = Some(doc.title.clone());
+    }
+    if check.cited.organisation.is_none() {
+        check.cited.organisation.clone_from(&doc.organisation);
+    }
+    if check.cited.date.is_none() {
+        check.cited.date.clone_from(&doc.date);
+    }
     let title = &doc.title;
     let last = c.end_page.unwrap_or(c.page).max(c.page);
     if c.page == 0 || last as usize > doc.pages.len() {

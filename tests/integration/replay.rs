@@ -193,6 +193,18 @@ fn answers_replay_and_every_kind_of_change_is_caught() {
     let r_md = replay_json(&[m], idx, 0);
     assert_eq!(verdicts(&r_md), verdicts(&r));
     assert_eq!(r_md["input"]["format"], "markdown");
+    // The footnote gives no organisation or date in a machine-read field;
+    // the document as it is now fills them in (for the CSV).
+    let c_md = &r_md["sentences"][0]["citations"][0];
+    let first = answer["sentences"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|s| s["verdict"] == "supported")
+        .unwrap();
+    assert!(c_md["organisation"].is_string(), "{c_md:#}");
+    assert_eq!(c_md["organisation"], first["citations"][0]["organisation"]);
+    assert_eq!(c_md["date"], first["citations"][0]["date"]);
     let no_index = work.join("no-such-index");
     let release = demo.release.to_str().unwrap();
     let from_files = replay_json(&[a, "--sources", release], &no_index, 0);
