@@ -45,7 +45,7 @@ pub fn render_claims(out: &mut String, sentences: &[(&str, &[CitedQuote])]) {
     let mut notes: Vec<&CitedQuote> = Vec::new();
     let mut body = Vec::new();
     for (text, cites) in sentences {
-        let mut s = text.trim().to_string();
+        let mut s = crate::text::fold_ws(text);
         for c in cites.iter() {
             let n = match notes
                 .iter()
@@ -567,11 +567,15 @@ code[^a]
             &mut out,
             &[
                 ("The board approved $1.4 million.", &cites[..1]),
-                ("Nothing else was said.", &cites[..]),
+                ("Nothing else\n- was said.", &cites[..]),
             ],
         );
         let back = parse(&out).unwrap();
         assert_eq!(back.claims.len(), 2, "{out}");
+        assert_eq!(
+            back.claims[1].text, "Nothing else - was said.",
+            "a line break inside a sentence cannot start a list item"
+        );
         assert_eq!(back.claims[0].text, "The board approved $1.4 million.");
         let c = &back.claims[1].citations;
         assert_eq!(c.len(), 2);
