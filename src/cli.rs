@@ -26,10 +26,12 @@ const AFTER_HELP: &str = "\
 Typical session:
   onrecord ingest ./release-2023-0412 --manifest ./release-2023-0412/manifest.csv
   onrecord search \"Pier 3 budget\" --from 2020 --org harbour
-  onrecord ask \"How much did the Pier 3 budget increase in 2021?\"
+  onrecord ask \"How much did the Pier 3 budget increase in 2021?\" --markdown > answer.md
+  onrecord replay answer.md            # weeks later: does every sentence still hold?
 
 The index lives in ./.onrecord unless --index or ONRECORD_INDEX says otherwise.
-Exit codes: 0 success; 1 an error, or (ingest) a file that failed; 2 bad arguments.";
+Exit codes: 0 success; 1 an error, or (ingest) a file that failed, or (replay)
+a sentence that no longer holds; 2 bad arguments, or (replay) unusable input.";
 
 /// Answer questions from released records with sentences that verbatim
 /// quotes from cited pages support.
