@@ -349,7 +349,7 @@ pub fn html(r: &EvalReport) -> String {
             let _ = writeln!(
                 h,
                 "<tr><th scope=\"row\">{}</th><td class=\"num\">{}</td><td class=\"num\">{}</td><td class=\"num\">{:+.1} pts</td><td class=\"num\">[{:+.1}, {:+.1}]</td><td>{}</td></tr>",
-                esc(&m.metric),
+                esc(label_of(&m.metric)),
                 pct(m.a),
                 pct(m.b),
                 m.interval.diff * 100.0,
@@ -457,6 +457,14 @@ pub fn html(r: &EvalReport) -> String {
     h
 }
 
+/// A metric's reader-facing label.
+fn label_of(key: &str) -> &str {
+    HEADLINE
+        .iter()
+        .find(|(k, _)| *k == key)
+        .map_or(key, |(_, l)| l)
+}
+
 /// A Markdown summary: the headline table and the comparisons.
 pub fn markdown(r: &EvalReport) -> String {
     let mut m = String::new();
@@ -477,8 +485,8 @@ pub fn markdown(r: &EvalReport) -> String {
         m.push_str("---:|");
     }
     m.push('\n');
-    for (key, _) in HEADLINE {
-        let _ = write!(m, "| {key} |");
+    for (key, label) in HEADLINE {
+        let _ = write!(m, "| {label} |");
         for c in &r.configs {
             let _ = write!(m, " {} |", fmt_metric(c.headline.get(*key).copied()));
         }
@@ -503,7 +511,7 @@ pub fn markdown(r: &EvalReport) -> String {
             let _ = writeln!(
                 m,
                 "| {} | {:+.1} pts | [{:+.1}, {:+.1}] | {} |",
-                d.metric,
+                label_of(&d.metric),
                 d.interval.diff * 100.0,
                 d.interval.low * 100.0,
                 d.interval.high * 100.0,

@@ -171,7 +171,7 @@ fn the_demo_set_runs_side_by_side_and_reports() {
     }
     check_html(&report.join("report.html"), &ids);
     let md = std::fs::read_to_string(report.join("summary.md")).unwrap();
-    assert!(md.contains("| page_ndcg@10 |") && md.contains("same-again minus bm25-extractive"));
+    assert!(md.contains("| page nDCG@10 |") && md.contains("same-again minus bm25-extractive"));
 
     // Text from a question set is escaped; markup in it stays inert.
     let hostile = write(
@@ -207,7 +207,10 @@ fn the_demo_set_runs_side_by_side_and_reports() {
     let html = std::fs::read_to_string(report2.join("report.html")).unwrap();
     assert!(html.contains("&lt;img src=x onerror=alert(1)&gt;"));
     let stdout = String::from_utf8_lossy(&out.stdout);
-    assert!(stdout.contains("| abstain_recall |"), "{stdout}");
+    assert!(
+        stdout.contains("| abstention recall (unanswerable questions declined) |"),
+        "{stdout}"
+    );
 
     // A bad configuration names its file and line.
     let bad = write(
