@@ -42,27 +42,45 @@ pub fn paired(
     seed: u64,
     stat: impl Fn(&[usize]) -> Option<(f64, f64)>,
 ) -> Option<Interval> {
+    paired_many(n, resamples, seed, 1, |idx| vec![stat(idx)]).remove(0)
+}
+
+/// [`paired`] for `k` statistics at once, computed together on each draw
+/// (every statistic sees the same draws): `stat` returns one value pair,
+/// or `None`, per statistic.
+pub fn paired_many(
+    n: usize,
+    resamples: usize,
+    seed: u64,
+    k: usize,
+    stat: impl Fn(&[usize]) -> Vec<Option<(f64, f64)>>,
+) -> Vec<Option<Interval>> {
     let all: Vec<usize> = (0..n).collect();
-    let (a, b) = stat(&all)?;
+    let whole = stat(&all);
     let mut rng = Rng::new(seed, n, resamples);
-    let mut diffs = Vec::with_capacity(resamples);
+    let mut diffs: Vec<Vec<f64>> = vec![Vec::with_capacity(resamples); k];
     let mut draw = vec![0; n];
     for _ in 0..resamples {
         for d in draw.iter_mut() {
             *d = rng.below(n);
         }
-        if let Some((x, y)) = stat(&draw) {
-            diffs.push(y - x);
+        for (i, v) in stat(&draw).into_iter().enumerate().take(k) {
+            if let Some((x, y)) = v {
+                diffs[i].push(y - x);
+            }
         }
     }
-    if diffs.is_empty() {
-        return None;
-    }
-    Some(Interval {
-        diff: b - a,
-        low: quantile(&diffs, 0.025),
-        high: quantile(&diffs, 0.975),
-    })
+    (0..k)
+        .map(|i| {
+            let (a, b) = whole.get(i).copied().flatten()?;
+            let d = &diffs[i];
+            (!d.is_empty()).then(|| Interval {
+                diff: b - a,
+                low: quantile(d, 0.025),
+                high: quantile(d, 0.975),
+            })
+        })
+        .collect()
 }
 
 #[cfg(test)]

@@ -799,23 +799,31 @@ pub fn run_config(
 /// Paired bootstrap intervals for every headline metric, B − A.
 pub fn compare(a: &ConfigRun, b: &ConfigRun, resamples: usize, seed: u64) -> Comparison {
     let n = a.questions.len().min(b.questions.len());
-    let mut metrics = Vec::new();
-    for (key, _) in HEADLINE {
-        let stat = |idx: &[usize]| {
-            let qa: Vec<&QuestionRun> = idx.iter().map(|&i| &a.questions[i]).collect();
-            let qb: Vec<&QuestionRun> = idx.iter().map(|&i| &b.questions[i]).collect();
-            Some((*headline(&qa).get(*key)?, *headline(&qb).get(*key)?))
-        };
-        if let Some(interval) = bootstrap::paired(n, resamples, seed, stat) {
-            metrics.push(MetricDiff {
+    // Both configurations' headline figures once per draw, for every metric.
+    let stat = |idx: &[usize]| {
+        let qa: Vec<&QuestionRun> = idx.iter().map(|&i| &a.questions[i]).collect();
+        let qb: Vec<&QuestionRun> = idx.iter().map(|&i| &b.questions[i]).collect();
+        let (ha, hb) = (headline(&qa), headline(&qb));
+        HEADLINE
+            .iter()
+            .map(|(key, _)| Some((*ha.get(*key)?, *hb.get(*key)?)))
+            .collect()
+    };
+    let intervals = bootstrap::paired_many(n, resamples, seed, HEADLINE.len(), stat);
+    let metrics = HEADLINE
+        .iter()
+        .zip(intervals)
+        .filter_map(|((key, _), interval)| {
+            let interval = interval?;
+            Some(MetricDiff {
                 metric: key.to_string(),
                 a: a.headline.get(*key).copied().unwrap_or_default(),
                 b: b.headline.get(*key).copied().unwrap_or_default(),
                 beyond_noise: interval.excludes_zero(),
                 interval,
-            });
-        }
-    }
+            })
+        })
+        .collect();
     Comparison {
         a: a.name.clone(),
         b: b.name.clone(),
