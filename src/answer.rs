@@ -331,6 +331,10 @@ pub fn ask_with(index: &Index, question: &str, plan: AskPlan<'_>) -> Result<Answ
         timings.verify_ms += ms(t);
         drafter_name = format!("{} (fallback from {})", fb.name(), drafter_name);
     }
+    note_ocr(store, &mut sentences);
+    if let Some(rec) = draft_record.as_mut() {
+        note_ocr(store, &mut rec.verdicts);
+    }
     let any_supported = supported(&sentences);
     let abstain_reason = match (&draft.abstain, any_supported) {
         (Some(r), _) => Some(r.clone()),
@@ -378,6 +382,35 @@ pub fn ask_with(index: &Index, question: &str, plan: AskPlan<'_>) -> Result<Answ
         }),
         caution: CAUTION.into(),
     })
+}
+
+/// Marks each citation whose page was read by OCR with the confidence of
+/// the quoted words (across a page break, the words on both pages).
+pub fn note_ocr(store: &crate::store::Store, sentences: &mut [VerifiedSentence]) {
+    let mut pages: HashMap<(DocId, u32), Option<crate::ocr::PageOcr>> = HashMap::new();
+    let mut get = |d: &DocId, p: u32| {
+        pages
+            .entry((d.clone(), p))
+            .or_insert_with(|| store.page_ocr(d, p).ok().flatten())
+            .clone()
+    };
+    for s in sentences.iter_mut() {
+        for c in &mut s.citations {
+            let first = get(&c.doc_id, c.page);
+            let (first_end, last) = match c.end_page {
+                Some(e) if e != c.page => (usize::MAX, get(&c.doc_id, e)),
+                _ => (c.end_char, None),
+            };
+            let mut words: Vec<crate::ocr::OcrWord> = Vec::new();
+            if let Some(o) = &first {
+                words.extend(crate::ocr::span_words(&o.words, c.start_char, first_end).cloned());
+            }
+            if let Some(o) = &last {
+                words.extend(crate::ocr::span_words(&o.words, 0, c.end_char).cloned());
+            }
+            c.ocr = crate::ocr::confidence_of(&words);
+        }
+    }
 }
 
 /// The default fallback for model drafters.
@@ -495,6 +528,20 @@ pub fn render_text(a: &AnswerRecord) -> String {
                     out,
                     "      (citation corrected: the drafter pointed to another passage; the quote is here)"
                 );
+            }
+            if let Some(o) = &c.ocr {
+                match o.warning() {
+                    Some(w) => {
+                        let _ = writeln!(out, "      ! {w}");
+                    }
+                    None => {
+                        let _ = writeln!(
+                            out,
+                            "      (page read by OCR; confidence {:.0}% on this span)",
+                            o.confidence
+                        );
+                    }
+                }
             }
         }
     }

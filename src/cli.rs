@@ -333,6 +333,68 @@ enum PdfRouteArg {
     Builtin,
 }
 
+/// When and how PDF pages are read by OCR.
+#[derive(Args, Debug, Clone)]
+struct OcrArgs {
+    /// auto: pages with no text layer, a page image with under 200
+    /// characters of text, or a layer that is mostly not words; always: every
+    /// PDF page (the OCR text replaces the layer); never: no OCR.
+    #[arg(long, value_enum, default_value_t = OcrModeArg::Auto)]
+    ocr: OcrModeArg,
+    /// Tesseract languages, joined with '+'; those not installed are left out.
+    #[arg(long, default_value = "eng+fra", value_name = "LANGS")]
+    ocr_languages: String,
+    /// The tesseract program.
+    #[arg(
+        long,
+        env = "ONRECORD_TESSERACT",
+        default_value = "tesseract",
+        value_name = "PROGRAM"
+    )]
+    tesseract: PathBuf,
+    /// Pages read at once (one tesseract process each); default: one per core.
+    #[arg(long, value_name = "N")]
+    ocr_workers: Option<usize>,
+}
+
+impl OcrArgs {
+    fn resolve(&self) -> Result<(onrecord::ocr::OcrMode, onrecord::ocr::engine::OcrSettings)> {
+        let mut s = onrecord::ocr::engine::OcrSettings {
+            program: self.tesseract.clone().into_os_string(),
+            languages: self
+                .ocr_languages
+                .split('+')
+                .map(str::trim)
+                .filter(|l| !l.is_empty())
+                .map(str::to_string)
+                .collect(),
+            ..Default::default()
+        };
+        if s.languages.is_empty() {
+            bail!("--ocr-languages names no language (write e.g. eng+fra)");
+        }
+        if let Some(n) = self.ocr_workers {
+            if n == 0 {
+                bail!("--ocr-workers must be at least 1");
+            }
+            s.workers = n;
+        }
+        let mode = match self.ocr {
+            OcrModeArg::Auto => onrecord::ocr::OcrMode::Auto,
+            OcrModeArg::Always => onrecord::ocr::OcrMode::Always,
+            OcrModeArg::Never => onrecord::ocr::OcrMode::Never,
+        };
+        Ok((mode, s))
+    }
+}
+
+#[derive(clap::ValueEnum, Clone, Copy, Debug)]
+enum OcrModeArg {
+    Auto,
+    Always,
+    Never,
+}
+
 /// How `ask` and `replay` print their result.
 #[derive(Args, Debug, Clone, Copy)]
 struct ExportArgs {
@@ -342,7 +404,7 @@ struct ExportArgs {
     json: bool,
     /// Print one CSV row per sentence and quote (RFC 4180): question,
     /// sentence, verdict, reason, doc_id, title, organisation, date, page,
-    /// quote, fingerprint.
+    /// quote, fingerprint, ocr_confidence, ocr_warning (the last two for pages read by OCR).
     #[arg(long, conflicts_with = "markdown")]
     csv: bool,
     /// Print Markdown with footnotes (doc id, page, fingerprint and the
@@ -380,6 +442,13 @@ enum Command {
     /// Folders are read recursively; hidden entries are skipped. A file that
     /// is unchanged since the last run is left alone; a changed one replaces
     /// its old version. A bad file is reported and the run goes on.
+    ///
+    /// Scanned PDF pages (no text layer, or one that is mostly not words) are
+    /// rendered at 300 dpi and read by tesseract (English and French), one
+    /// page per core. Each word's confidence is kept, so a quote from shaky
+    /// OCR is flagged later. OCR results are cached in the index by what the
+    /// page draws: re-ingesting never reads a page twice. Without tesseract
+    /// the other pages are still ingested, and the run says how to install it.
     Ingest {
         /// Files or folders.
         #[arg(required = true, value_name = "PATH")]
@@ -414,6 +483,8 @@ enum Command {
         /// How to read PDF text layers.
         #[arg(long, value_enum, default_value_t = PdfRouteArg::Auto)]
         pdf_reader: PdfRouteArg,
+        #[command(flatten)]
+        ocr: OcrArgs,
         /// Print the summary and diagnostics as JSON.
         #[arg(long)]
         json: bool,
@@ -810,9 +881,11 @@ pub fn run() -> Result<ExitCode> {
             chunk_tokens,
             chunk_overlap,
             pdf_reader,
+            ocr,
             json,
             quiet,
         } => {
+            let (ocr, ocr_settings) = ocr.resolve()?;
             let mut m = Manifest::default();
             for f in &manifest {
                 m.extend(
@@ -840,6 +913,8 @@ pub fn run() -> Result<ExitCode> {
                     url,
                 },
                 progress: !quiet && !json && std::io::stderr().is_terminal(),
+                ocr,
+                ocr_settings,
             };
             let progress = cfg.progress;
             cmd_ingest(&index.index, &paths, &cfg, &choice, progress, json)
@@ -1986,6 +2061,17 @@ fn cmd_ingest(
             report.seconds,
             index.display()
         )?;
+        if report.ocr_read + report.ocr_cached + report.ocr_failed > 0 {
+            writeln!(
+                out,
+                "OCR: {} pages read in {:.1}s ({:.2} pages/s), {} from the OCR cache, {} not read",
+                report.ocr_read,
+                report.ocr_seconds,
+                report.ocr_read as f64 / report.ocr_seconds.max(1e-9),
+                report.ocr_cached,
+                report.ocr_failed
+            )?;
+        }
         if let Some((r, sync)) = &embedding {
             writeln!(
                 out,
@@ -2216,6 +2302,16 @@ fn cmd_demo(
         report.failed,
         report.pages
     )?;
+    if report.ocr_read + report.ocr_cached + report.ocr_failed > 0 {
+        writeln!(
+            err,
+            "Scanned pages: {} read by OCR ({:.2} pages/s), {} from the OCR cache, {} not read.",
+            report.ocr_read,
+            report.ocr_read as f64 / report.ocr_seconds.max(1e-9),
+            report.ocr_cached,
+            report.ocr_failed
+        )?;
+    }
     writeln!(
         err,
         "Retrieval: {}\n",

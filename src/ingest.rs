@@ -12,6 +12,8 @@ use crate::chunk::{ChunkConfig, chunk_pages};
 use crate::error::{Error, Result};
 use crate::extract::{self, ExtractOptions, Kind};
 use crate::manifest::Manifest;
+use crate::ocr::engine::{self, Job, OcrEngine, OcrError, OcrSettings, Outcome, Tesseract};
+use crate::ocr::{self, OcrMode, OcrReason, PageOcr};
 use crate::store::{NewDocument, Store};
 use crate::text::hash_hex;
 use crate::types::{DocId, DocMeta};
@@ -28,6 +30,9 @@ pub struct IngestConfig {
     /// Metadata set by flags for this run; it wins over the manifest and the file.
     pub meta_override: DocMeta,
     pub progress: bool,
+    /// When PDF pages are read by OCR.
+    pub ocr: OcrMode,
+    pub ocr_settings: OcrSettings,
 }
 
 /// Counts for the final summary.
@@ -45,6 +50,13 @@ pub struct Report {
     pub failed: usize,
     pub pages: usize,
     pub chunks: usize,
+    /// Pages read by OCR in this run, taken from the OCR cache, and that
+    /// needed OCR but could not be read.
+    pub ocr_read: usize,
+    pub ocr_cached: usize,
+    pub ocr_failed: usize,
+    /// Time spent rendering and reading pages (wall clock, all workers).
+    pub ocr_seconds: f64,
     pub seconds: f64,
 }
 
@@ -165,7 +177,44 @@ struct Run<'a> {
     cfg: &'a IngestConfig,
     report: Report,
     diags: Vec<Diagnostic>,
+    /// The OCR engine, found when the first page needs it.
+    engine: Option<std::result::Result<Tesseract, OcrError>>,
+    /// Files read and waiting for their OCR pages, in file order.
+    pending: Vec<Pending>,
+    ocr_bar: indicatif::ProgressBar,
 }
+
+/// A file read and checked, waiting for OCR before it is stored.
+struct Pending {
+    path: PathBuf,
+    canonical: PathBuf,
+    kind: Kind,
+    file_hash: String,
+    ingest_key: String,
+    source: String,
+    known: Option<crate::store::KnownSource>,
+    entry: crate::manifest::Entry,
+    meta: DocMeta,
+    extracted: extract::Extracted,
+    pages: Vec<OcrPending>,
+    /// Pages that need OCR but could not be read for want of the tools.
+    unread: Vec<u32>,
+}
+
+/// A page that needs OCR.
+struct OcrPending {
+    page: u32,
+    reason: OcrReason,
+    cache_key: String,
+    job: Job,
+    result: Option<Outcome>,
+}
+
+/// Read OCR pages in batches of about this many (across files), so both
+/// cores stay busy when a release holds many one-page scans.
+const OCR_BATCH_PAGES: usize = 16;
+/// And never hold more than this many files waiting.
+const OCR_BATCH_FILES: usize = 64;
 
 /// Ingest files and folders into the index at `index_dir`.
 pub fn ingest_paths(
@@ -179,7 +228,13 @@ pub fn ingest_paths(
     let mut diags = Vec::new();
     let files = collect_files(paths, &mut diags);
     let failed_paths = diags.len();
-    let bar = progress_bar(cfg.progress, files.len() as u64, "files");
+    let bars = indicatif::MultiProgress::new();
+    let bar = bars.add(progress_bar(cfg.progress, files.len() as u64, "files"));
+    let ocr_bar = if cfg.progress {
+        bars.add(progress_bar(true, 0, "OCR pages"))
+    } else {
+        indicatif::ProgressBar::hidden()
+    };
     let mut run = Run {
         store: &mut store,
         cfg,
@@ -188,6 +243,9 @@ pub fn ingest_paths(
             ..Default::default()
         },
         diags,
+        engine: None,
+        pending: Vec::new(),
+        ocr_bar,
     };
     let mut writer = bm25.writer()?;
     let mut since_commit = 0;
@@ -197,8 +255,14 @@ pub fn ingest_paths(
                 .map(|n| n.to_string_lossy().into_owned())
                 .unwrap_or_default(),
         );
-        if run.one_file(f, &mut writer)? {
-            since_commit += 1;
+        if let Some(p) = run.prepare(f)? {
+            run.pending.push(p);
+        }
+        if run.queued_pages() >= OCR_BATCH_PAGES
+            || run.pending.len() >= OCR_BATCH_FILES
+            || (run.queued_pages() == 0 && !run.pending.is_empty())
+        {
+            since_commit += run.flush(&mut writer)?;
         }
         // Commit now and then so an interrupted run keeps its work.
         if since_commit >= 200 {
@@ -208,8 +272,10 @@ pub fn ingest_paths(
         }
         bar.inc(1);
     }
+    run.flush(&mut writer)?;
     writer.commit(run.store.generation()?)?;
     bar.finish_and_clear();
+    run.ocr_bar.finish_and_clear();
     let mut report = run.report;
     report.seconds = started.elapsed().as_secs_f64();
     Ok((report, run.diags))
@@ -251,6 +317,7 @@ pub fn ingest_docs(
             headers: None,
             pages: d.pages,
             chunks,
+            ocr: Vec::new(),
         };
         let (p, c) = store_and_index(&mut store, &mut writer, &doc)?;
         report.ingested += 1;
@@ -299,9 +366,32 @@ impl Run<'_> {
         });
     }
 
-    /// Returns Ok(true) when the file was stored. Errors returned are store or
-    /// index failures, which stop the run; file problems become diagnostics.
-    fn one_file(&mut self, path: &Path, writer: &mut crate::bm25::Bm25Writer<'_>) -> Result<bool> {
+    /// Pages waiting for the OCR engine.
+    fn queued_pages(&self) -> usize {
+        self.pending
+            .iter()
+            .flat_map(|p| &p.pages)
+            .filter(|p| p.result.is_none())
+            .count()
+    }
+
+    /// The OCR engine, looked for once per run; a missing one is reported
+    /// once, with how to install it.
+    fn engine(&mut self, path: &Path) -> Option<&Tesseract> {
+        if self.engine.is_none() {
+            let found = Tesseract::find(&self.cfg.ocr_settings);
+            if let Err(e) = &found {
+                self.diag(path, Severity::Warning, e.to_string());
+            }
+            self.engine = Some(found);
+        }
+        self.engine.as_ref().and_then(|e| e.as_ref().ok())
+    }
+
+    /// Reads and checks one file. Returns it when it is to be stored (after
+    /// any OCR); `None` when it was skipped, unchanged or failed (counted and
+    /// reported). Errors returned are store failures, which stop the run.
+    fn prepare(&mut self, path: &Path) -> Result<Option<Pending>> {
         let Some(kind) = Kind::of(path) else {
             self.report.skipped += 1;
             let ext = path
@@ -309,14 +399,14 @@ impl Run<'_> {
                 .map(|e| format!(".{}", e.to_string_lossy().to_lowercase()))
                 .unwrap_or_else(|| "(none)".into());
             *self.report.skipped_types.entry(ext).or_default() += 1;
-            return Ok(false);
+            return Ok(None);
         };
         let canonical = match path.canonicalize() {
             Ok(c) => c,
             Err(e) => {
                 self.report.failed += 1;
                 self.diag(path, Severity::Error, format!("cannot open: {e}"));
-                return Ok(false);
+                return Ok(None);
             }
         };
         let bytes = match std::fs::read(&canonical) {
@@ -324,7 +414,7 @@ impl Run<'_> {
             Err(e) => {
                 self.report.failed += 1;
                 self.diag(path, Severity::Error, format!("cannot read: {e}"));
-                return Ok(false);
+                return Ok(None);
             }
         };
         let file_hash = hash_hex(&bytes);
@@ -336,9 +426,14 @@ impl Run<'_> {
             .unwrap_or_default();
         let mut meta = entry.meta.clone();
         meta.overlay(&self.cfg.meta_override);
+        let ocr_mode = if kind == Kind::Pdf {
+            self.cfg.ocr.name()
+        } else {
+            ""
+        };
         let ingest_key = hash_hex(
             format!(
-                "{file_hash}\u{0}{meta:?}\u{0}{:?}\u{0}{:?}",
+                "{file_hash}\u{0}{meta:?}\u{0}{:?}\u{0}{:?}\u{0}{ocr_mode}",
                 entry.id, self.cfg.chunk
             )
             .as_bytes(),
@@ -347,7 +442,7 @@ impl Run<'_> {
         let known = self.store.known_source(&source)?;
         if known.as_ref().is_some_and(|k| k.ingest_key == ingest_key) {
             self.report.unchanged += 1;
-            return Ok(false);
+            return Ok(None);
         }
         let extracted = match extract::extract(&canonical, kind, &bytes, &self.cfg.extract) {
             Ok(x) => x,
@@ -359,33 +454,278 @@ impl Run<'_> {
                     ""
                 };
                 self.diag(path, Severity::Error, format!("{e}{kept}"));
-                return Ok(false);
+                return Ok(None);
             }
         };
         for n in &extracted.notes {
             self.diag(path, Severity::Note, n.clone());
         }
-        let empty: Vec<String> = extracted
+        let mut pending = Pending {
+            path: path.to_path_buf(),
+            canonical,
+            kind,
+            file_hash,
+            ingest_key,
+            source,
+            known,
+            entry,
+            meta,
+            extracted,
+            pages: Vec::new(),
+            unread: Vec::new(),
+        };
+        self.plan_ocr(&mut pending)?;
+        Ok(Some(pending))
+    }
+
+    /// Decides which pages of a PDF need OCR, and takes those already read
+    /// from the cache.
+    fn plan_ocr(&mut self, p: &mut Pending) -> Result<()> {
+        let needs: Vec<(u32, OcrReason)> = p
+            .extracted
+            .drawings
+            .iter()
+            .zip(&p.extracted.pages)
+            .enumerate()
+            .filter_map(|(i, (d, text))| {
+                ocr::assess(text, d.has_image, self.cfg.ocr)
+                    .1
+                    .map(|r| (i as u32 + 1, r))
+            })
+            .collect();
+        if needs.is_empty() {
+            return Ok(());
+        }
+        let Some(engine) = self.engine(&p.path).cloned() else {
+            p.unread = needs.iter().map(|(n, _)| *n).collect();
+            return Ok(());
+        };
+        for (page, reason) in needs {
+            let drawing = p.extracted.drawings[page as usize - 1].clone();
+            let dpi = engine::render_dpi(&drawing, self.cfg.ocr_settings.dpi);
+            let cache_key = engine::cache_key(&drawing, &engine, dpi);
+            let result = self.store.ocr_cached(&cache_key)?.map(|page| {
+                self.report.ocr_cached += 1;
+                Outcome {
+                    blank: page.words.is_empty(),
+                    page: Ok(page),
+                    complaint: None,
+                }
+            });
+            p.pages.push(OcrPending {
+                page,
+                reason,
+                cache_key,
+                job: Job {
+                    pdf: p.canonical.clone(),
+                    page,
+                    drawing,
+                },
+                result,
+            });
+        }
+        Ok(())
+    }
+
+    /// Reads every queued page on the worker pool, caches the results, and
+    /// stores the waiting files in order. Returns how many were stored.
+    fn flush(&mut self, writer: &mut crate::bm25::Bm25Writer<'_>) -> Result<usize> {
+        let mut slots = Vec::new();
+        let mut jobs = Vec::new();
+        for (i, p) in self.pending.iter().enumerate() {
+            for (j, page) in p.pages.iter().enumerate() {
+                if page.result.is_none() {
+                    slots.push((i, j));
+                    jobs.push(page.job.clone());
+                }
+            }
+        }
+        if !jobs.is_empty()
+            && let Some(Ok(engine)) = &self.engine
+        {
+            let started = Instant::now();
+            self.ocr_bar.inc_length(jobs.len() as u64);
+            let bar = self.ocr_bar.clone();
+            let outcomes = engine::run_jobs(&jobs, engine, &self.cfg.ocr_settings, &|| bar.inc(1));
+            self.report.ocr_seconds += started.elapsed().as_secs_f64();
+            for ((i, j), out) in slots.into_iter().zip(outcomes) {
+                let page = &mut self.pending[i].pages[j];
+                if let Ok(read) = &out.page {
+                    self.store
+                        .put_ocr_cached(&page.cache_key, engine.id(), read)?;
+                    self.report.ocr_read += 1;
+                }
+                page.result = Some(out);
+            }
+        }
+        let mut stored = 0;
+        for p in std::mem::take(&mut self.pending) {
+            if self.finish(p, writer)? {
+                stored += 1;
+            }
+        }
+        Ok(stored)
+    }
+
+    /// Puts OCR text in place of the pages that needed it, reports what
+    /// happened, and stores the file. Returns Ok(true) when it was stored.
+    fn finish(&mut self, p: Pending, writer: &mut crate::bm25::Bm25Writer<'_>) -> Result<bool> {
+        let Pending {
+            path,
+            canonical,
+            kind,
+            file_hash,
+            mut ingest_key,
+            source,
+            known,
+            entry,
+            mut meta,
+            mut extracted,
+            pages,
+            unread,
+        } = p;
+        let mut ocr_pages = Vec::new();
+        let mut read = Vec::new();
+        let mut low = Vec::new();
+        let mut blank = Vec::new();
+        for op in pages {
+            let Some(out) = op.result else { continue };
+            let n = op.page;
+            if let Some(c) = &out.complaint {
+                self.diag(
+                    &path,
+                    Severity::Warning,
+                    format!("page {n}: the page image is damaged ({c}); OCR read what it could"),
+                );
+            }
+            let page = match out.page {
+                Ok(page) => page,
+                Err(e) => {
+                    self.report.ocr_failed += 1;
+                    if !e.is_setup() {
+                        self.diag(
+                            &path,
+                            Severity::Warning,
+                            format!("page {n}: {e}; the page is left without text"),
+                        );
+                    }
+                    continue;
+                }
+            };
+            if out.blank {
+                blank.push(n);
+                continue;
+            }
+            if page.text.trim().is_empty() {
+                continue;
+            }
+            if !ocr::prefer_ocr(&extracted.pages[n as usize - 1], &op.reason, &page.text) {
+                // The layer reads better than the picture (a cover page
+                // with a logo, say): keep it.
+                continue;
+            }
+            if let Some(c) = page.confidence.filter(|c| *c < ocr::LOW_CONFIDENCE) {
+                low.push(format!("{n} ({c:.0}%)"));
+            }
+            read.push((n, op.reason.clone(), page.confidence));
+            extracted.pages[n as usize - 1] = page.text;
+            ocr_pages.push(PageOcr {
+                page: n,
+                cache_key: op.cache_key,
+                reason: op.reason,
+                confidence: page.confidence,
+                words: page.words,
+            });
+        }
+        if !read.is_empty() {
+            let pages: Vec<u32> = read.iter().map(|r| r.0).collect();
+            let mut reasons: Vec<String> = read.iter().map(|r| r.1.to_string()).collect();
+            reasons.dedup();
+            let (sum, n) = ocr_pages.iter().fold((0f64, 0usize), |(s, n), o| {
+                let chars: usize = o.words.iter().map(|w| w.text.chars().count()).sum();
+                (
+                    s + f64::from(o.confidence.unwrap_or(0.0)) * chars as f64,
+                    n + chars,
+                )
+            });
+            self.diag(
+                &path,
+                Severity::Note,
+                format!(
+                    "{} read by OCR ({}); mean word confidence {:.0}%",
+                    page_list(&pages),
+                    reasons.join("; "),
+                    sum / n.max(1) as f64
+                ),
+            );
+        }
+        if !low.is_empty() {
+            self.diag(
+                &path,
+                Severity::Warning,
+                format!(
+                    "low OCR confidence on page(s) {}: quotes from them are flagged; check the page images",
+                    low.join(", ")
+                ),
+            );
+        }
+        if !unread.is_empty() {
+            self.report.ocr_failed += unread.len();
+            self.diag(
+                &path,
+                Severity::Warning,
+                format!(
+                    "{} need OCR but could not be read (see the first warning for how to install what is missing); the file will be read again on the next ingest",
+                    page_list(&unread)
+                ),
+            );
+            // Never "unchanged" while pages wait for OCR.
+            ingest_key.push_str(":ocr-pending");
+        }
+        if extracted.pages.iter().all(|p| p.trim().is_empty()) {
+            self.report.failed += 1;
+            let kept = if known.is_some() {
+                "; the version stored earlier is kept"
+            } else {
+                ""
+            };
+            let why = if kind != Kind::Pdf {
+                "the file is empty (no text)".to_string()
+            } else if !blank.is_empty() && blank.len() == extracted.pages.len() {
+                format!(
+                    "no text layer on any of its {} pages, and they render blank",
+                    extracted.pages.len()
+                )
+            } else {
+                format!(
+                    "no text layer on any of its {} pages (image-only scan?), and OCR found no text",
+                    extracted.pages.len()
+                )
+            };
+            self.diag(&path, Severity::Error, format!("{why}{kept}"));
+            return Ok(false);
+        }
+        let empty: Vec<u32> = extracted
             .pages
             .iter()
             .enumerate()
             .filter(|(_, p)| p.trim().is_empty())
-            .map(|(i, _)| (i + 1).to_string())
+            .map(|(i, _)| i as u32 + 1)
             .collect();
         if !empty.is_empty() {
             self.diag(
-                path,
+                &path,
                 Severity::Warning,
                 format!(
-                    "page(s) {} have no text (image-only?); they cannot be searched or quoted",
-                    empty.join(", ")
+                    "{} have no text (blank, or image-only and not read); they cannot be searched or quoted",
+                    page_list(&empty)
                 ),
             );
         }
         // Metadata: flags > manifest > the file's own.
         meta.fill_from(&extracted.meta);
         if let Some(Err(m)) = meta.date.as_deref().map(crate::types::check_date) {
-            self.diag(path, Severity::Warning, format!("date ignored: {m}"));
+            self.diag(&path, Severity::Warning, format!("date ignored: {m}"));
             meta.date = None;
         }
         let doc_id = match (&known, &entry.id) {
@@ -396,7 +736,7 @@ impl Run<'_> {
                     Some(other) if other != source => {
                         self.report.failed += 1;
                         self.diag(
-                            path,
+                            &path,
                             Severity::Error,
                             format!("the manifest gives id `{id}`, which {other} already has"),
                         );
@@ -423,6 +763,7 @@ impl Run<'_> {
             headers: extracted.headers,
             pages: extracted.pages,
             chunks,
+            ocr: ocr_pages,
         };
         let (p, c) = store_and_index(self.store, writer, &doc)?;
         self.report.ingested += 1;
@@ -437,6 +778,26 @@ impl Run<'_> {
     fn fresh_id(&self, canonical: &Path) -> Result<DocId> {
         id_from_file_name(canonical, |id| Ok(self.store.source_of(id)?.is_some()))
     }
+}
+
+/// "page 3" or "pages 1-4, 7".
+fn page_list(pages: &[u32]) -> String {
+    let mut parts: Vec<String> = Vec::new();
+    let mut i = 0;
+    while i < pages.len() {
+        let mut j = i;
+        while j + 1 < pages.len() && pages[j + 1] == pages[j] + 1 {
+            j += 1;
+        }
+        parts.push(if i == j {
+            pages[i].to_string()
+        } else {
+            format!("{}-{}", pages[i], pages[j])
+        });
+        i = j + 1;
+    }
+    let word = if pages.len() == 1 { "page" } else { "pages" };
+    format!("{word} {}", parts.join(", "))
 }
 
 #[cfg(test)]
@@ -454,5 +815,11 @@ mod tests {
         for (input, want) in cases {
             assert_eq!(slug(input), want);
         }
+    }
+
+    #[test]
+    fn page_lists() {
+        assert_eq!(page_list(&[3]), "page 3");
+        assert_eq!(page_list(&[1, 2, 3, 4, 7, 9, 10]), "pages 1-4, 7, 9-10");
     }
 }

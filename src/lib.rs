@@ -20,6 +20,7 @@ pub mod fuse;
 pub mod ingest;
 pub mod llm;
 pub mod manifest;
+pub mod ocr;
 pub mod prompt;
 pub mod replay;
 pub mod retrieve;

@@ -20,9 +20,9 @@ use rusqlite::{Connection, OptionalExtension, params};
 use std::path::{Path, PathBuf};
 
 /// Format version of the store. Bump on any incompatible schema change.
-/// Format 2 added embeddings, format 3 the answer log; older stores are
-/// upgraded in place.
-pub const STORE_FORMAT: u32 = 3;
+/// Format 2 added embeddings, format 3 the answer log, format 4 OCR (the
+/// cache and each page's words); older stores are upgraded in place.
+pub const STORE_FORMAT: u32 = 4;
 pub const STORE_FILE: &str = "store.sqlite";
 
 const SCHEMA: &str = "
@@ -99,6 +99,26 @@ CREATE TABLE IF NOT EXISTS cited_pages (
 );
 ";
 
+/// Tables added in format 4: OCR results by page-drawing key (never
+/// pruned by ingest, so re-ingesting never reads a page twice), and the
+/// words and confidences of every stored page that came from OCR.
+const SCHEMA_4: &str = "
+CREATE TABLE IF NOT EXISTS ocr_cache (
+    key TEXT PRIMARY KEY,
+    engine TEXT NOT NULL,
+    page TEXT NOT NULL
+);
+CREATE TABLE IF NOT EXISTS page_ocr (
+    doc INTEGER NOT NULL REFERENCES documents(rowid) ON DELETE CASCADE,
+    page INTEGER NOT NULL,
+    cache_key TEXT NOT NULL,
+    reason TEXT NOT NULL,
+    confidence REAL,
+    words TEXT NOT NULL,
+    PRIMARY KEY (doc, page)
+);
+";
+
 /// One entry of the answer log, without its record.
 #[derive(Debug, Clone, serde::Serialize, serde::Deserialize, PartialEq)]
 pub struct LoggedAnswer {
@@ -161,6 +181,8 @@ pub struct NewDocument {
     pub headers: Option<serde_json::Value>,
     pub pages: Vec<String>,
     pub chunks: Vec<Chunk>,
+    /// The pages whose text came from OCR.
+    pub ocr: Vec<crate::ocr::PageOcr>,
 }
 
 /// What the store knows about a source file already ingested.
@@ -264,11 +286,25 @@ impl Store {
 
     /// Upgrade a format 2 store in place: add the answer log.
     fn upgrade_from_2(&self) -> Result<()> {
+        self.add_tables(SCHEMA_3, 3)
+    }
+
+    /// Upgrade a format 3 store in place: add the OCR tables.
+    fn upgrade_from_3(&self) -> Result<()> {
+        self.add_tables(SCHEMA_4, 4)
+    }
+
+    /// Creates `schema`'s tables and sets the format to `format`, in one
+    /// transaction.
+    fn add_tables(&self, schema: &str, format: u32) -> Result<()> {
         let e = |e| Error::store(&self.path, e);
         let tx = self.conn.unchecked_transaction().map_err(e)?;
-        tx.execute_batch(SCHEMA_3).map_err(e)?;
-        tx.execute("UPDATE meta SET value = '3' WHERE key = 'format'", [])
-            .map_err(e)?;
+        tx.execute_batch(schema).map_err(e)?;
+        tx.execute(
+            "UPDATE meta SET value = ?1 WHERE key = 'format'",
+            params![format.to_string()],
+        )
+        .map_err(e)?;
         tx.commit().map_err(e)
     }
 
@@ -308,6 +344,7 @@ impl Store {
         self.conn.execute_batch(SCHEMA).map_err(|e| self.err(e))?;
         self.conn.execute_batch(SCHEMA_2).map_err(|e| self.err(e))?;
         self.conn.execute_batch(SCHEMA_3).map_err(|e| self.err(e))?;
+        self.conn.execute_batch(SCHEMA_4).map_err(|e| self.err(e))?;
         self.conn
             .execute(
                 "INSERT OR REPLACE INTO meta(key, value) VALUES ('format', ?1), ('generation', '0')",
@@ -329,9 +366,14 @@ impl Store {
             Some(v) if v == STORE_FORMAT.to_string() => Ok(()),
             Some(v) if v == "1" => {
                 self.upgrade_from_1()?;
-                self.upgrade_from_2()
+                self.upgrade_from_2()?;
+                self.upgrade_from_3()
             }
-            Some(v) if v == "2" => self.upgrade_from_2(),
+            Some(v) if v == "2" => {
+                self.upgrade_from_2()?;
+                self.upgrade_from_3()
+            }
+            Some(v) if v == "3" => self.upgrade_from_3(),
             other => Err(Error::FormatMismatch {
                 path: self.path.clone(),
                 found: other.unwrap_or_else(|| "unknown (not an onrecord store)".into()),
@@ -445,6 +487,25 @@ impl Store {
                 .map_err(e)?;
             }
         }
+        {
+            let mut ins = tx
+                .prepare(
+                    "INSERT INTO page_ocr(doc, page, cache_key, reason, confidence, words)
+                     VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
+                )
+                .map_err(e)?;
+            for o in &doc.ocr {
+                ins.execute(params![
+                    rowid,
+                    o.page,
+                    o.cache_key,
+                    serde_json::to_string(&o.reason).expect("plain data serialises"),
+                    o.confidence,
+                    serde_json::to_string(&o.words).expect("plain data serialises"),
+                ])
+                .map_err(e)?;
+            }
+        }
         let mut out = Vec::with_capacity(doc.chunks.len());
         {
             let mut ins = tx
@@ -538,6 +599,79 @@ impl Store {
                 |r| Ok((r.get(0)?, r.get(1)?)),
             )
             .optional()
+            .map_err(|e| self.err(e))
+    }
+
+    /// The OCR words and confidence of a page, when its text came from OCR.
+    pub fn page_ocr(&self, doc_id: &DocId, page: u32) -> Result<Option<crate::ocr::PageOcr>> {
+        let row: Option<(String, String, Option<f64>, String)> = self
+            .conn
+            .query_row(
+                "SELECT o.cache_key, o.reason, o.confidence, o.words FROM page_ocr o
+                 JOIN documents d ON d.rowid = o.doc WHERE d.doc_id = ?1 AND o.page = ?2",
+                params![doc_id.0, page],
+                |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?, r.get(3)?)),
+            )
+            .optional()
+            .map_err(|e| self.err(e))?;
+        let Some((cache_key, reason, confidence, words)) = row else {
+            return Ok(None);
+        };
+        let bad = |what: &str, e: serde_json::Error| {
+            Error::Invalid(format!(
+                "{}: the stored OCR {what} of {doc_id} page {page} is unreadable: {e}",
+                self.path.display()
+            ))
+        };
+        Ok(Some(crate::ocr::PageOcr {
+            page,
+            cache_key,
+            reason: serde_json::from_str(&reason).map_err(|e| bad("reason", e))?,
+            confidence: confidence.map(|c| c as f32),
+            words: serde_json::from_str(&words).map_err(|e| bad("words", e))?,
+        }))
+    }
+
+    /// A cached OCR result by key (see [`crate::ocr::engine::cache_key`]).
+    /// An unreadable entry counts as absent (the page is read again).
+    pub fn ocr_cached(&self, key: &str) -> Result<Option<crate::ocr::OcrPage>> {
+        let row: Option<String> = self
+            .conn
+            .query_row(
+                "SELECT page FROM ocr_cache WHERE key = ?1",
+                params![key],
+                |r| r.get(0),
+            )
+            .optional()
+            .map_err(|e| self.err(e))?;
+        Ok(row.and_then(|j| serde_json::from_str(&j).ok()))
+    }
+
+    /// Stores an OCR result in the cache.
+    pub fn put_ocr_cached(
+        &self,
+        key: &str,
+        engine: &str,
+        page: &crate::ocr::OcrPage,
+    ) -> Result<()> {
+        self.conn
+            .execute(
+                "INSERT OR REPLACE INTO ocr_cache(key, engine, page) VALUES (?1, ?2, ?3)",
+                params![
+                    key,
+                    engine,
+                    serde_json::to_string(page).expect("plain data serialises")
+                ],
+            )
+            .map_err(|e| self.err(e))?;
+        Ok(())
+    }
+
+    /// How many OCR results the cache holds.
+    pub fn ocr_cache_len(&self) -> Result<u64> {
+        self.conn
+            .query_row("SELECT COUNT(*) FROM ocr_cache", [], |r| r.get::<_, i64>(0))
+            .map(|n| n as u64)
             .map_err(|e| self.err(e))
     }
 

@@ -146,6 +146,10 @@ pub struct Citation {
     /// retrieved chunk and the citation was corrected.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub corrected_from: Option<ChunkId>,
+    /// OCR confidence of the quoted words, when the page was read by OCR;
+    /// `low` asks the reporter to check the page image before quoting.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub ocr: Option<crate::ocr::SpanConfidence>,
 }
 
 fn one() -> f32 {

@@ -1095,6 +1095,7 @@ mod tests {
             quoted_as: None,
             similarity: 1.0,
             corrected_from: None,
+            ocr: None,
         };
         let s = |text: &str, cites: &[&str]| crate::verify::VerifiedSentence {
             text: text.into(),

@@ -73,6 +73,7 @@ pub(super) fn extract(bytes: &[u8]) -> Result<Extracted, ExtractError> {
         },
         headers: Some(headers),
         notes,
+        drawings: Vec::new(),
     })
 }
 

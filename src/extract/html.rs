@@ -65,6 +65,7 @@ pub(super) fn extract(bytes: &[u8]) -> Extracted {
         },
         headers: None,
         notes: Vec::new(),
+        drawings: Vec::new(),
     }
 }
 

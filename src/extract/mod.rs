@@ -55,6 +55,8 @@ pub struct Extracted {
     pub meta: DocMeta,
     pub headers: Option<serde_json::Value>,
     pub notes: Vec<String>,
+    /// For PDFs, what each page draws (for OCR); empty for other kinds.
+    pub drawings: Vec<pdf::PageDrawing>,
 }
 
 /// Why a file could not be extracted; shown to the user next to the path.
@@ -82,7 +84,9 @@ impl Default for ExtractOptions {
     }
 }
 
-/// Extract a file whose bytes are already read.
+/// Extract a file whose bytes are already read. A PDF's pages may all be
+/// empty (a scan, to be read by OCR); other kinds without text are
+/// [`ExtractError::Empty`].
 /// `bytes` are the file's contents, already read for hashing (pdftotext
 /// still reads `path` itself).
 pub fn extract(
@@ -96,10 +100,11 @@ pub fn extract(
             // PDF titles in released records are often tool debris ("Word -
             // memo.docx"), so the title comes from the manifest or the file
             // name instead.
-            let (pages, notes) = pdf_with_fallback(path, bytes, opts.pdf_route)?;
+            let (pages, drawings, notes) = pdf_with_fallback(path, bytes, opts.pdf_route)?;
             Extracted {
                 pages,
                 notes,
+                drawings,
                 ..Default::default()
             }
         }
@@ -112,11 +117,15 @@ pub fn extract(
             *p = p.replace("\r\n", "\n").replace('\r', "\n");
         }
     }
-    if out.pages.iter().all(|p| p.trim().is_empty()) {
+    // A PDF without text may still be read by OCR; the caller decides.
+    if kind != Kind::Pdf && out.pages.iter().all(|p| p.trim().is_empty()) {
         return Err(ExtractError::Empty);
     }
     Ok(out)
 }
+
+/// Pages, drawings and notes of a PDF.
+type PdfRead = (Vec<String>, Vec<pdf::PageDrawing>, Vec<String>);
 
 /// Read a PDF with `route`; when that reader fails on a file that the
 /// parser could open, try the other reader (when installed) and say so.
@@ -124,8 +133,8 @@ fn pdf_with_fallback(
     path: &Path,
     bytes: &[u8],
     route: pdf::PdfRoute,
-) -> Result<(Vec<String>, Vec<String>), pdf::PdfError> {
-    use pdf::{PdfError, PdfRoute, extract_pages_read as extract_pages};
+) -> Result<PdfRead, pdf::PdfError> {
+    use pdf::{PdfError, PdfRoute, extract_layer as extract_pages};
     match extract_pages(path, bytes, route) {
         Err(PdfError::Corrupt(first)) => {
             let other = match route {
@@ -136,8 +145,9 @@ fn pdf_with_fallback(
                 PdfRoute::PureRust => return Err(PdfError::Corrupt(first)),
             };
             match extract_pages(path, bytes, other) {
-                Ok(pages) => Ok((
+                Ok((pages, drawings)) => Ok((
                     pages,
+                    drawings,
                     vec![format!(
                         "read with the other PDF reader ({other:?}) after: {first}"
                     )],
@@ -145,7 +155,7 @@ fn pdf_with_fallback(
                 Err(_) => Err(PdfError::Corrupt(first)),
             }
         }
-        other => other.map(|p| (p, Vec::new())),
+        other => other.map(|(p, d)| (p, d, Vec::new())),
     }
 }
 

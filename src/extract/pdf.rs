@@ -191,6 +191,67 @@ pub fn write_image_only_pdf(path: &Path, n: usize) -> Result<(), PdfError> {
     save_atomically(&mut doc, path)
 }
 
+/// Writes a PDF of scanned pages: each page is one 8-bit gray JPEG image
+/// (`DCTDecode`, quality 60, as office scanners write them) filling a US
+/// Letter page, with no text layer. `raw_data`, when given, replaces the
+/// image data of the page with that index (to make a corrupt image for tests).
+pub fn write_scanned_pdf(
+    path: &Path,
+    title: &str,
+    pages: &[crate::ocr::image::Gray],
+    raw_data: Option<(usize, Vec<u8>)>,
+) -> Result<(), PdfError> {
+    let mut doc = Document::with_version("1.5");
+    let pages_id = doc.new_object_id();
+    let resources_id = doc.add_object(dictionary! {
+        "ProcSet" => vec![Object::Name(b"PDF".to_vec()), Object::Name(b"ImageB".to_vec())],
+    });
+    let mut kids = Vec::with_capacity(pages.len());
+    for (i, img) in pages.iter().enumerate() {
+        let (w, h) = (
+            u16::try_from(img.width).map_err(|_| PdfError::Write("page image too wide".into()))?,
+            u16::try_from(img.height).map_err(|_| PdfError::Write("page image too tall".into()))?,
+        );
+        let mut jpeg = Vec::new();
+        jpeg_encoder::Encoder::new(&mut jpeg, 60)
+            .encode(&img.pixels, w, h, jpeg_encoder::ColorType::Luma)
+            .map_err(|e| PdfError::Write(format!("encoding page {}: {e}", i + 1)))?;
+        if let Some((n, bytes)) = &raw_data
+            && *n == i
+        {
+            jpeg = bytes.clone();
+        }
+        let stream = Stream::new(
+            dictionary! {
+                "Type" => "XObject",
+                "Subtype" => "Image",
+                "Width" => img.width as i64,
+                "Height" => img.height as i64,
+                "ColorSpace" => "DeviceGray",
+                "BitsPerComponent" => 8,
+                "Filter" => "DCTDecode",
+            },
+            jpeg,
+        )
+        .with_compression(false);
+        let image_id = doc.add_object(stream);
+        let content = format!("q {PAGE_WIDTH} 0 0 {PAGE_HEIGHT} 0 0 cm /Im1 Do Q\n").into_bytes();
+        let content_id = doc.add_object(Stream::new(Dictionary::new(), content));
+        let page_id = doc.add_object(dictionary! {
+            "Type" => "Page",
+            "Parent" => pages_id,
+            "Contents" => content_id,
+            "Resources" => dictionary! {
+                "XObject" => dictionary! { "Im1" => image_id },
+                "ProcSet" => vec![Object::Name(b"PDF".to_vec()), Object::Name(b"ImageB".to_vec())],
+            },
+        });
+        kids.push(Object::Reference(page_id));
+    }
+    finish_document(&mut doc, pages_id, resources_id, kids, Some(title));
+    save_atomically(&mut doc, path)
+}
+
 /// Test fixture: a PDF whose trailer has a Standard security handler /Encrypt dictionary (V 1, R 2) whose
 /// O/U entries do not authenticate the empty user password, i.e. a reader needs a password to open it.
 ///
@@ -425,11 +486,29 @@ pub fn extract_pages_read(
     bytes: &[u8],
     route: PdfRoute,
 ) -> Result<Vec<String>, PdfError> {
+    let (pages, drawings) = extract_layer(path, bytes, route)?;
+    if pages.iter().all(String::is_empty) {
+        return Err(PdfError::NoText {
+            pages: pages.len().max(drawings.len()),
+        });
+    }
+    Ok(pages)
+}
+
+/// The text layer of every page (empty strings where a page has none, even
+/// when every page is empty) and what each page draws, for OCR.
+pub fn extract_layer(
+    path: &Path,
+    bytes: &[u8],
+    route: PdfRoute,
+) -> Result<(Vec<String>, Vec<PageDrawing>), PdfError> {
     let doc = load_checked(bytes)?;
     let page_count = doc.get_pages().len();
     if page_count == 0 {
         return Err(PdfError::NoPages);
     }
+    let drawings = quietly(|| page_drawings(&doc))
+        .map_err(|msg| PdfError::Corrupt(format!("the PDF parser crashed: {msg}")))?;
     let raw = match route {
         PdfRoute::Pdftotext => {
             drop(doc);
@@ -437,13 +516,134 @@ pub fn extract_pages_read(
         }
         PdfRoute::PureRust => pure_rust_pages(doc)?,
     };
-    let pages: Vec<String> = raw.iter().map(|p| normalize_page(p)).collect();
-    if pages.iter().all(String::is_empty) {
-        return Err(PdfError::NoText {
-            pages: pages.len().max(page_count),
+    let mut pages: Vec<String> = raw.iter().map(|p| normalize_page(p)).collect();
+    // pdftotext drops trailing empty pages; keep one entry per page.
+    while pages.len() < page_count {
+        pages.push(String::new());
+    }
+    Ok((pages, drawings))
+}
+
+/// What OCR needs to know about one page of a PDF.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PageDrawing {
+    /// SHA-256 of what the page draws: its content streams and the raw data
+    /// of the images and forms they use. Two pages with the same key render
+    /// to the same picture, so OCR results are cached by it.
+    pub key: String,
+    /// Whether the page draws a raster image (an image XObject, directly or
+    /// inside a form, or an inline image).
+    pub has_image: bool,
+    /// The page's size in points (from its MediaBox, inherited if need be).
+    pub width_pt: f64,
+    pub height_pt: f64,
+}
+
+/// [`PageDrawing`] for every page, in page order.
+fn page_drawings(doc: &Document) -> Vec<PageDrawing> {
+    use sha2::{Digest, Sha256};
+    let mut out = Vec::new();
+    for (_, page_id) in doc.get_pages() {
+        let mut h = Sha256::new();
+        let content = doc.get_page_content(page_id).unwrap_or_default();
+        let mut has_image = content.windows(4).any(|w| w == b"\nBI " || w == b" BI\n")
+            || content.starts_with(b"BI ");
+        h.update(&content);
+        if let Ok((own, inherited)) = doc.get_page_resources(page_id) {
+            let mut dicts: Vec<&Dictionary> = own.into_iter().collect();
+            dicts.extend(
+                inherited
+                    .iter()
+                    .filter_map(|id| doc.get_dictionary(*id).ok()),
+            );
+            for res in dicts {
+                hash_xobjects(doc, res, &mut h, &mut has_image, 0);
+            }
+        }
+        let (width_pt, height_pt) = media_box(doc, page_id).unwrap_or((PAGE_WIDTH, PAGE_HEIGHT));
+        let digest = h.finalize();
+        out.push(PageDrawing {
+            key: digest.iter().map(|b| format!("{b:02x}")).collect(),
+            has_image,
+            width_pt,
+            height_pt,
         });
     }
-    Ok(pages)
+    out
+}
+
+/// Feeds the XObjects of a resource dictionary into `h` (by name, raw data),
+/// descending into forms up to three levels.
+fn hash_xobjects(
+    doc: &Document,
+    resources: &Dictionary,
+    h: &mut sha2::Sha256,
+    has_image: &mut bool,
+    depth: usize,
+) {
+    use sha2::Digest;
+    let Ok(xobjects) = resources
+        .get(b"XObject")
+        .and_then(|o| doc.dereference(o))
+        .and_then(|(_, o)| o.as_dict())
+    else {
+        return;
+    };
+    let mut names: Vec<&Vec<u8>> = xobjects.iter().map(|(k, _)| k).collect();
+    names.sort();
+    for name in names {
+        let Ok(stream) = xobjects
+            .get(name)
+            .and_then(|o| doc.dereference(o))
+            .and_then(|(_, o)| o.as_stream())
+        else {
+            continue;
+        };
+        h.update(name);
+        h.update(&stream.content);
+        match stream.dict.get(b"Subtype").and_then(Object::as_name) {
+            Ok(b"Image") => *has_image = true,
+            Ok(b"Form") if depth < 3 => {
+                if let Ok((_, Object::Dictionary(res))) = stream
+                    .dict
+                    .get(b"Resources")
+                    .and_then(|o| doc.dereference(o))
+                {
+                    hash_xobjects(doc, res, h, has_image, depth + 1);
+                }
+            }
+            _ => {}
+        }
+    }
+}
+
+/// A page's MediaBox width and height, looked up the page tree if need be.
+fn media_box(doc: &Document, page_id: ObjectId) -> Option<(f64, f64)> {
+    let mut node = doc.get_dictionary(page_id).ok()?;
+    for _ in 0..32 {
+        if let Ok(b) = node
+            .get(b"MediaBox")
+            .and_then(|o| doc.dereference(o))
+            .and_then(|(_, o)| o.as_array())
+        {
+            let n: Vec<f64> = b
+                .iter()
+                .filter_map(|o| {
+                    o.as_float()
+                        .ok()
+                        .map(f64::from)
+                        .or(o.as_i64().ok().map(|i| i as f64))
+                })
+                .collect();
+            if n.len() == 4 {
+                return Some(((n[2] - n[0]).abs(), (n[3] - n[1]).abs()));
+            }
+            return None;
+        }
+        let parent = node.get(b"Parent").and_then(Object::as_reference).ok()?;
+        node = doc.get_dictionary(parent).ok()?;
+    }
+    None
 }
 
 /// Loads with lopdf (inside the panic guard) and applies the encryption rule.
@@ -465,21 +665,32 @@ fn load_checked(bytes: &[u8]) -> Result<Document, PdfError> {
     Ok(doc)
 }
 
-/// Runs `pdftotext` and splits its output into pages on form feeds.
 /// A finished child: exit status, stdout, stderr.
-type Finished = (std::process::ExitStatus, Vec<u8>, Vec<u8>);
+pub(crate) type Finished = (std::process::ExitStatus, Vec<u8>, Vec<u8>);
 
-/// Runs `cmd` to completion, or kills it after `limit`. Returns the exit
-/// status, stdout and stderr, or `None` on time-out.
-fn output_within(
+/// Runs `cmd` to completion, or kills it after `limit`. `input`, when given,
+/// is written to the child's standard input. Returns the exit status,
+/// stdout and stderr, or `None` on time-out.
+pub(crate) fn output_within(
     mut cmd: Command,
+    input: Option<Vec<u8>>,
     limit: std::time::Duration,
 ) -> std::io::Result<Option<Finished>> {
     use std::io::Read;
+    if input.is_some() {
+        cmd.stdin(std::process::Stdio::piped());
+    }
     let mut child = cmd
         .stdout(std::process::Stdio::piped())
         .stderr(std::process::Stdio::piped())
         .spawn()?;
+    let writer = match (input, child.stdin.take()) {
+        (Some(bytes), Some(mut stdin)) => Some(std::thread::spawn(move || {
+            // A child that exits early closes the pipe; that is its answer.
+            let _ = stdin.write_all(&bytes);
+        })),
+        _ => None,
+    };
     let mut out = child.stdout.take().expect("piped stdout");
     let mut err = child.stderr.take().expect("piped stderr");
     let out_reader = std::thread::spawn(move || {
@@ -504,6 +715,9 @@ fn output_within(
         }
         std::thread::sleep(std::time::Duration::from_millis(10));
     };
+    if let Some(w) = writer {
+        let _ = w.join();
+    }
     let stdout = out_reader.join().unwrap_or_default();
     let stderr = err_reader.join().unwrap_or_default();
     Ok(status.map(|st| (st, stdout, stderr)))
@@ -528,7 +742,7 @@ fn pdftotext_pages(path: &Path, pages_hint: usize) -> Result<Vec<String>, PdfErr
         .arg("-")
         .stdin(std::process::Stdio::null());
     let limit = pdftotext_limit(pages_hint);
-    let Some((status, stdout, stderr)) = output_within(cmd, limit)? else {
+    let Some((status, stdout, stderr)) = output_within(cmd, None, limit)? else {
         return Err(PdfError::Corrupt(format!(
             "pdftotext did not finish within {} s; the file was given up on",
             limit.as_secs()
@@ -632,7 +846,7 @@ fn short(s: &str) -> String {
     }
 }
 
-fn find_on_path(name: &str) -> Option<PathBuf> {
+pub(crate) fn find_on_path(name: &str) -> Option<PathBuf> {
     let path = std::env::var_os("PATH")?;
     std::env::split_paths(&path)
         .map(|dir| dir.join(name))
@@ -901,14 +1115,14 @@ mod tests {
         slow.arg("5");
         let t = std::time::Instant::now();
         assert!(
-            output_within(slow, std::time::Duration::from_millis(100))
+            output_within(slow, None, std::time::Duration::from_millis(100))
                 .unwrap()
                 .is_none()
         );
         assert!(t.elapsed() < std::time::Duration::from_secs(4));
         let mut quick = Command::new("echo");
         quick.arg("done");
-        let (status, out, _) = output_within(quick, std::time::Duration::from_secs(10))
+        let (status, out, _) = output_within(quick, None, std::time::Duration::from_secs(10))
             .unwrap()
             .unwrap();
         assert!(status.success());

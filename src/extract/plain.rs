@@ -29,6 +29,7 @@ pub(super) fn extract(bytes: &[u8], markdown: bool) -> Extracted {
         },
         headers: None,
         notes,
+        drawings: Vec::new(),
     }
 }
 

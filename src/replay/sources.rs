@@ -186,8 +186,18 @@ impl PageSource for SourceFiles {
         let kind = Kind::of(&path).expect("only supported files are listed");
         let bytes =
             std::fs::read(&path).map_err(|e| format!("{}: cannot read: {e}", path.display()))?;
-        let x = extract::extract(&path, kind, &bytes, &self.opts)
+        let mut x = extract::extract(&path, kind, &bytes, &self.opts)
             .map_err(|e| format!("{}: {e}", path.display()))?;
+        // Scanned pages are read as ingest read them, so their text (and
+        // hash) is the same.
+        crate::ocr::read_in_place(
+            &path,
+            &mut x.pages,
+            &x.drawings,
+            crate::ocr::OcrMode::Auto,
+            &crate::ocr::engine::OcrSettings::default(),
+        )
+        .map_err(|e| format!("{}: {e}", path.display()))?;
         let entry = self.manifest.get(&path).cloned().unwrap_or_default();
         let mut meta = entry.meta;
         meta.fill_from(&x.meta);

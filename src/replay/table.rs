@@ -8,7 +8,7 @@ use crate::verify::VerifiedSentence;
 use std::io::Write;
 
 /// The columns, in order.
-pub const COLUMNS: [&str; 11] = [
+pub const COLUMNS: [&str; 13] = [
     "question",
     "sentence",
     "verdict",
@@ -20,6 +20,8 @@ pub const COLUMNS: [&str; 11] = [
     "page",
     "quote",
     "fingerprint",
+    "ocr_confidence",
+    "ocr_warning",
 ];
 
 fn writer<W: Write>(out: W) -> csv::Writer<W> {
@@ -40,7 +42,15 @@ fn row<W: Write>(
     w: &mut csv::Writer<W>,
     lead: [&str; 4],
     c: Option<&CitedQuote>,
+    ocr: Option<&crate::ocr::SpanConfidence>,
 ) -> csv::Result<()> {
+    let ocr: [String; 2] = match ocr {
+        Some(o) => [
+            format!("{:.0}", o.confidence),
+            o.warning().unwrap_or_default(),
+        ],
+        None => Default::default(),
+    };
     let cite: [String; 7] = match c {
         Some(c) => [
             c.doc_id.0.clone(),
@@ -56,7 +66,12 @@ fn row<W: Write>(
         ],
         None => Default::default(),
     };
-    w.write_record(lead.iter().copied().chain(cite.iter().map(String::as_str)))
+    w.write_record(
+        lead.iter()
+            .copied()
+            .chain(cite.iter().map(String::as_str))
+            .chain(ocr.iter().map(String::as_str)),
+    )
 }
 
 fn sentence_rows<W: Write>(
@@ -71,10 +86,10 @@ fn sentence_rows<W: Write>(
     let reason = s.reason.as_deref().unwrap_or("");
     let lead = [question, s.text.as_str(), verdict, reason];
     if s.citations.is_empty() {
-        return row(w, lead, None);
+        return row(w, lead, None, None);
     }
     for c in &s.citations {
-        row(w, lead, Some(&CitedQuote::from(c)))?;
+        row(w, lead, Some(&CitedQuote::from(c)), c.ocr.as_ref())?;
     }
     Ok(())
 }
@@ -107,10 +122,10 @@ pub fn write_replay<W: Write>(r: &ReplayReport, out: W) -> csv::Result<()> {
         let reason = s.reason.as_deref().unwrap_or("");
         let lead = [question, s.text.as_str(), s.verdict.label(), reason];
         if s.citations.is_empty() {
-            row(&mut w, lead, None)?;
+            row(&mut w, lead, None, None)?;
         }
         for c in &s.citations {
-            row(&mut w, lead, Some(&c.cited))?;
+            row(&mut w, lead, Some(&c.cited), None)?;
         }
     }
     w.flush()?;

@@ -307,6 +307,7 @@ fn verify_sentence(
             similarity: loc.similarity,
             corrected_from: (chunk.id != cited.id).then_some(cited.id),
             quote: loc.page_text,
+            ocr: None,
         });
     }
     let evidence: Vec<Evidence<'_>> = citations

@@ -8,6 +8,7 @@ mod drafting;
 mod endpoint;
 mod eval_run;
 mod ingest;
+mod ocr;
 mod open_data;
 mod replay;
 mod retrieval;

@@ -4,6 +4,11 @@
 //! real PDF with a text layer (one source line per PDF line, a form feed per
 //! page break), copies e-mails and HTML as they are, and writes a manifest
 //! beside them, so that ingest exercises the PDF path as with a real release.
+//! Sources whose manifest row has a `scan` field become image-only scans
+//! instead ([`scan`]), rendered from the same text and damaged, so that OCR
+//! can be measured against the text they came from.
+
+pub mod scan;
 
 use crate::error::{Error, Result};
 use crate::extract::pdf::{PdfPage, write_text_pdf};
@@ -37,6 +42,10 @@ pub struct DemoEntry {
     pub date: String,
     pub release: String,
     pub url: String,
+    /// Render as a damaged image-only scan (not written to the release's
+    /// manifest: the release looks as a real one would).
+    #[serde(default, skip_serializing)]
+    pub scan: Option<scan::ScanSpec>,
 }
 
 pub fn load_entries(source: &Path) -> Result<Vec<DemoEntry>> {
@@ -71,7 +80,7 @@ pub fn build(source: &Path, out: &Path) -> Result<PathBuf> {
                 .unwrap_or_default()
         };
         let dst = out.join(&name);
-        if !up_to_date(&src, &dst) {
+        if !up_to_date(&src, &dst) || !up_to_date(&source.join("manifest.jsonl"), &dst) {
             if is_text {
                 let text = std::fs::read_to_string(&src).map_err(|err| Error::io(&src, err))?;
                 let pages: Vec<PdfPage> = text
@@ -87,10 +96,26 @@ pub fn build(source: &Path, out: &Path) -> Result<PathBuf> {
                             .collect(),
                     })
                     .collect();
-                write_text_pdf(&dst, &e.title, &pages).map_err(|err| Error::Extract {
-                    path: src.clone(),
-                    message: err.to_string(),
-                })?;
+                match &e.scan {
+                    Some(spec) if can_scan() => {
+                        let seed =
+                            u64::from_str_radix(&crate::text::hash_hex(e.id.as_bytes())[..16], 16)
+                                .unwrap_or(0);
+                        scan::write_scan(&dst, &e.title, &pages, spec, seed)?;
+                    }
+                    _ => {
+                        if e.scan.is_some() {
+                            tracing::warn!(
+                                "{}: pdftoppm (poppler-utils) is not installed, so this page set is written with a text layer instead of as a scan",
+                                src.display()
+                            );
+                        }
+                        write_text_pdf(&dst, &e.title, &pages).map_err(|err| Error::Extract {
+                            path: src.clone(),
+                            message: err.to_string(),
+                        })?;
+                    }
+                }
             } else {
                 std::fs::copy(&src, &dst).map_err(|err| Error::io(&src, err))?;
             }
@@ -127,6 +152,11 @@ pub fn prepare(
     let (report, diags) =
         crate::ingest::ingest_paths(&index, std::slice::from_ref(&release), &cfg)?;
     Ok((index, report, diags))
+}
+
+/// Whether scans can be made here (they are rendered with pdftoppm).
+pub fn can_scan() -> bool {
+    crate::extract::pdf::find_on_path("pdftoppm").is_some()
 }
 
 /// Whether `dir` holds demo sources (a `manifest.jsonl` and `docs/`).
