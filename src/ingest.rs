@@ -181,7 +181,9 @@ struct Run<'a> {
     engine: Option<std::result::Result<Tesseract, OcrError>>,
     /// Files read and waiting for their OCR pages, in file order.
     pending: Vec<Pending>,
-    ocr_bar: indicatif::ProgressBar,
+    bars: indicatif::MultiProgress,
+    /// Shown from the first page read by OCR.
+    ocr_bar: Option<indicatif::ProgressBar>,
 }
 
 /// A file read and checked, waiting for OCR before it is stored.
@@ -230,11 +232,6 @@ pub fn ingest_paths(
     let failed_paths = diags.len();
     let bars = indicatif::MultiProgress::new();
     let bar = bars.add(progress_bar(cfg.progress, files.len() as u64, "files"));
-    let ocr_bar = if cfg.progress {
-        bars.add(progress_bar(true, 0, "OCR pages"))
-    } else {
-        indicatif::ProgressBar::hidden()
-    };
     let mut run = Run {
         store: &mut store,
         cfg,
@@ -245,7 +242,8 @@ pub fn ingest_paths(
         diags,
         engine: None,
         pending: Vec::new(),
-        ocr_bar,
+        bars,
+        ocr_bar: None,
     };
     let mut writer = bm25.writer()?;
     let mut since_commit = 0;
@@ -275,7 +273,9 @@ pub fn ingest_paths(
     run.flush(&mut writer)?;
     writer.commit(run.store.generation()?)?;
     bar.finish_and_clear();
-    run.ocr_bar.finish_and_clear();
+    if let Some(b) = &run.ocr_bar {
+        b.finish_and_clear();
+    }
     let mut report = run.report;
     report.seconds = started.elapsed().as_secs_f64();
     Ok((report, run.diags))
@@ -375,11 +375,15 @@ impl Run<'_> {
             .count()
     }
 
-    /// The OCR engine, looked for once per run; a missing one is reported
-    /// once, with how to install it.
+    /// The OCR engine, looked for once per run (with the page renderer); a
+    /// missing one is reported once, with how to install it.
     fn engine(&mut self, path: &Path) -> Option<&Tesseract> {
         if self.engine.is_none() {
-            let found = Tesseract::find(&self.cfg.ocr_settings);
+            let found = if crate::extract::pdf::find_on_path("pdftoppm").is_none() {
+                Err(OcrError::RendererMissing)
+            } else {
+                Tesseract::find(&self.cfg.ocr_settings)
+            };
             if let Err(e) = &found {
                 self.diag(path, Severity::Warning, e.to_string());
             }
@@ -544,8 +548,14 @@ impl Run<'_> {
             && let Some(Ok(engine)) = &self.engine
         {
             let started = Instant::now();
-            self.ocr_bar.inc_length(jobs.len() as u64);
-            let bar = self.ocr_bar.clone();
+            let bar = self
+                .ocr_bar
+                .get_or_insert_with(|| {
+                    self.bars
+                        .add(progress_bar(self.cfg.progress, 0, "OCR pages"))
+                })
+                .clone();
+            bar.inc_length(jobs.len() as u64);
             let outcomes = engine::run_jobs(&jobs, engine, &self.cfg.ocr_settings, &|| bar.inc(1));
             self.report.ocr_seconds += started.elapsed().as_secs_f64();
             for ((i, j), out) in slots.into_iter().zip(outcomes) {

@@ -65,6 +65,10 @@ pub fn render_claims(out: &mut String, sentences: &[(&str, &[CitedQuote])]) {
     for (i, c) in notes.iter().enumerate() {
         let _ = writeln!(out, "[^{}]: {}", i + 1, footnote_head(c));
         let _ = writeln!(out, "    > {}", crate::text::fold_ws(&c.quote));
+        // An indented line that is not a quote: read past on replay.
+        if let Some(w) = &c.ocr_warning {
+            let _ = writeln!(out, "    {w}");
+        }
     }
     if !notes.is_empty() {
         out.push('\n');
@@ -462,6 +466,7 @@ fn footnote(label: &str, n: &Footnote) -> Result<CitedQuote, String> {
         quote,
         fingerprint,
         chunk: None,
+        ocr_warning: None,
     })
 }
 
@@ -549,6 +554,7 @@ code[^a]
                 quote: "The board approved $1.4 million, on 3 June.".into(),
                 fingerprint: Some("0123456789abcdef".into()),
                 chunk: None,
+                ocr_warning: None,
             },
             CitedQuote {
                 doc_id: DocId("d-2".into()),
@@ -560,6 +566,7 @@ code[^a]
                 quote: "Nothing else \u{201C}quoted\u{201D} here.".into(),
                 fingerprint: None,
                 chunk: None,
+                ocr_warning: None,
             },
         ];
         let mut out = String::new();
@@ -611,6 +618,7 @@ code[^a]
                 quote: quote.clone(),
                 fingerprint: fp.clone(),
                 chunk: None,
+                ocr_warning: None,
             };
             let mut out = String::new();
             render_claims(&mut out, &[("The board met.", std::slice::from_ref(&c))]);

@@ -79,6 +79,10 @@ pub struct CitedQuote {
     /// record has them.
     #[serde(skip)]
     pub chunk: Option<(ChunkId, String)>,
+    /// The low-OCR-confidence warning the answer gave this quote, carried
+    /// into Markdown exports (not checked on replay).
+    #[serde(skip)]
+    pub ocr_warning: Option<String>,
 }
 
 impl From<&crate::types::Citation> for CitedQuote {
@@ -93,6 +97,7 @@ impl From<&crate::types::Citation> for CitedQuote {
             quote: c.quote.clone(),
             fingerprint: (!c.page_hash.is_empty()).then(|| c.page_hash.clone()),
             chunk: None,
+            ocr_warning: c.ocr.as_ref().and_then(|o| o.warning()),
         }
     }
 }
@@ -132,6 +137,7 @@ pub fn claims_from_record(a: &AnswerRecord) -> Claims {
                     .iter()
                     .map(|c| CitedQuote {
                         chunk: chunk_hash(c.chunk_id).map(|h| (c.chunk_id, h)),
+                        ocr_warning: c.ocr.as_ref().and_then(|o| o.warning()),
                         ..CitedQuote::from(c)
                     })
                     .collect(),

@@ -314,6 +314,23 @@ fn quotes_from_a_degraded_scan_are_flagged() {
             "{shown}"
         );
     }
+    // Markdown carries the warning under the quote, and reads back to the
+    // same quotes.
+    let md = onrecord::replay::markdown::render_answer(&a);
+    assert!(md.contains("check the page image before quoting"), "{md}");
+    let back = onrecord::replay::markdown::parse(&md).unwrap();
+    let quotes: Vec<String> = back
+        .claims
+        .iter()
+        .flat_map(|c| &c.citations)
+        .map(|c| c.quote.clone())
+        .collect();
+    let supported: Vec<String> = a
+        .supported()
+        .flat_map(|s| &s.citations)
+        .map(|c| onrecord::text::fold_ws(&c.quote))
+        .collect();
+    assert_eq!(quotes, supported);
     let mut csv = Vec::new();
     onrecord::replay::table::write_answer(&a, &mut csv).unwrap();
     let mut rd = csv::Reader::from_reader(csv.as_slice());
