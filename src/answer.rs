@@ -387,29 +387,34 @@ pub fn ask_with(index: &Index, question: &str, plan: AskPlan<'_>) -> Result<Answ
 /// Marks each citation whose page was read by OCR with the confidence of
 /// the quoted words (across a page break, the words on both pages).
 pub fn note_ocr(store: &crate::store::Store, sentences: &mut [VerifiedSentence]) {
+    // Each cited page's OCR words, read once.
     let mut pages: HashMap<(DocId, u32), Option<crate::ocr::PageOcr>> = HashMap::new();
-    let mut get = |d: &DocId, p: u32| {
-        pages
-            .entry((d.clone(), p))
-            .or_insert_with(|| store.page_ocr(d, p).ok().flatten())
-            .clone()
-    };
-    for s in sentences.iter_mut() {
-        for c in &mut s.citations {
-            let first = get(&c.doc_id, c.page);
-            let (first_end, last) = match c.end_page {
-                Some(e) if e != c.page => (usize::MAX, get(&c.doc_id, e)),
-                _ => (c.end_char, None),
-            };
-            let mut words: Vec<crate::ocr::OcrWord> = Vec::new();
-            if let Some(o) = &first {
-                words.extend(crate::ocr::span_words(&o.words, c.start_char, first_end).cloned());
-            }
-            if let Some(o) = &last {
-                words.extend(crate::ocr::span_words(&o.words, 0, c.end_char).cloned());
-            }
-            c.ocr = crate::ocr::confidence_of(&words);
+    for c in sentences.iter().flat_map(|s| &s.citations) {
+        for p in [Some(c.page), c.end_page].into_iter().flatten() {
+            pages
+                .entry((c.doc_id.clone(), p))
+                .or_insert_with(|| store.page_ocr(&c.doc_id, p).ok().flatten());
         }
+    }
+    let words = |d: &DocId, p: u32| {
+        pages
+            .get(&(d.clone(), p))
+            .and_then(Option::as_ref)
+            .map(|o| o.words.as_slice())
+            .unwrap_or_default()
+    };
+    for c in sentences.iter_mut().flat_map(|s| &mut s.citations) {
+        let hit: Vec<&crate::ocr::OcrWord> = match c.end_page {
+            Some(e) if e != c.page => {
+                crate::ocr::span_words(words(&c.doc_id, c.page), c.start_char, usize::MAX)
+                    .chain(crate::ocr::span_words(words(&c.doc_id, e), 0, c.end_char))
+                    .collect()
+            }
+            _ => {
+                crate::ocr::span_words(words(&c.doc_id, c.page), c.start_char, c.end_char).collect()
+            }
+        };
+        c.ocr = crate::ocr::confidence_of(hit);
     }
 }
 

@@ -27,14 +27,17 @@ pub struct ScanSpec {
     /// Text of a rubber stamp set over the text of the first page.
     #[serde(default)]
     pub stamp: Option<String>,
-    /// The scanner's resolution in dpi (default [`SCAN_DPI`]); a low one
-    /// (100, a fax) leaves blurred, blocky letters.
-    #[serde(default)]
-    pub dpi: Option<u32>,
-    /// Blur radius in pixels at the scan's resolution (an out-of-focus or
-    /// much-copied page); 0 for none.
-    #[serde(default)]
-    pub blur: usize,
+}
+
+impl Default for ScanSpec {
+    fn default() -> Self {
+        ScanSpec {
+            skew: default_skew(),
+            noise: default_noise(),
+            toner: default_toner(),
+            stamp: None,
+        }
+    }
 }
 
 fn default_skew() -> f32 {
@@ -47,7 +50,7 @@ fn default_toner() -> f32 {
     0.72
 }
 
-/// Resolution the scans are made at (and embedded at), unless a spec says.
+/// Resolution the scans are made at (and embedded at).
 pub const SCAN_DPI: u32 = 300;
 
 /// Renders `pages` (lines of text) into an image-only PDF at `out`.
@@ -67,8 +70,7 @@ pub fn write_scan(
     };
     let mut images = Vec::with_capacity(pages.len());
     for i in 0..pages.len() {
-        let dpi = spec.dpi.unwrap_or(SCAN_DPI).clamp(50, 600);
-        let page = render_page(&text_pdf, i as u32 + 1, dpi, Duration::from_secs(120))
+        let page = render_page(&text_pdf, i as u32 + 1, SCAN_DPI, Duration::from_secs(120))
             .map_err(|e| extract_err(out, e.to_string()))?
             .image;
         let mut rng = Rng::new(seed, i, 7);
@@ -81,10 +83,6 @@ pub fn write_scan(
             let x = page.width * 9 / 20;
             let y = page.height / 7;
             press_stamp(&mut page, st, x, y);
-        }
-        if spec.blur > 0 {
-            // Two box blurs: close to a Gaussian.
-            page = box_blur(&box_blur(&page, spec.blur), spec.blur);
         }
         let angle = if i % 2 == 0 {
             spec.skew
@@ -151,51 +149,6 @@ fn rotate(src: &Gray, degrees: f32, fill: u8) -> Gray {
         }
     }
     out
-}
-
-/// A box blur of radius `r` (separable: rows, then columns).
-pub fn box_blur(src: &Gray, r: usize) -> Gray {
-    let pass = |img: &Gray, horizontal: bool| {
-        let mut out = img.clone();
-        let (outer, inner) = if horizontal {
-            (img.height, img.width)
-        } else {
-            (img.width, img.height)
-        };
-        for o in 0..outer {
-            let at = |i: usize| {
-                if horizontal {
-                    img.get(i, o)
-                } else {
-                    img.get(o, i)
-                }
-            };
-            let mut sum: u32 = 0;
-            let mut n: u32 = 0;
-            for i in 0..=r.min(inner - 1) {
-                sum += u32::from(at(i));
-                n += 1;
-            }
-            for i in 0..inner {
-                let v = (sum / n) as u8;
-                if horizontal {
-                    out.set(i, o, v);
-                } else {
-                    out.set(o, i, v);
-                }
-                if i + r + 1 < inner {
-                    sum += u32::from(at(i + r + 1));
-                    n += 1;
-                }
-                if i >= r {
-                    sum -= u32::from(at(i - r));
-                    n -= 1;
-                }
-            }
-        }
-        out
-    };
-    pass(&pass(src, true), false)
 }
 
 /// Grain (roughly Gaussian, from three uniforms) and toner specks.
@@ -292,13 +245,6 @@ mod tests {
             img.set(x, 15, 0);
         }
         assert_eq!(rotate(&img, 0.0, 255), img);
-        // A blur keeps a flat image flat and spreads a line's ink.
-        assert_eq!(
-            box_blur(&Gray::filled(9, 9, 200), 2),
-            Gray::filled(9, 9, 200)
-        );
-        let soft = box_blur(&img, 1);
-        assert!(soft.get(20, 14) < 255 && soft.get(20, 15) > 0);
         let turned = rotate(&img, 5.0, 255);
         // A horizontal line turned 5 degrees: its ends move in opposite
         // directions, by about tan(5°) * 15 ≈ 1.3 pixels.

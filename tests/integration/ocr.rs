@@ -59,6 +59,32 @@ fn lines(text: &str) -> Vec<PdfPage> {
     }]
 }
 
+/// A lightly damaged scan of `pages` (one string per page) at `path`.
+fn light_scan(path: &Path, pages: &[&str], seed: u64) {
+    let pages: Vec<PdfPage> = pages.iter().flat_map(|p| lines(p)).collect();
+    let spec = ScanSpec {
+        skew: 0.3,
+        noise: 0.02,
+        toner: 0.85,
+        stamp: None,
+    };
+    write_scan(path, "t", &pages, &spec, seed).unwrap();
+}
+
+/// The extractive drafter and the rules judge, as `ask` runs by default.
+fn ask_plain(index: &Index, question: &str) -> onrecord::answer::AnswerRecord {
+    ask(
+        index,
+        question,
+        &Filters::default(),
+        10,
+        &Extractive::default(),
+        serde_json::Value::Null,
+        &RulesJudge::default(),
+    )
+    .unwrap()
+}
+
 /// Character error rate of OCR on every scanned demo page, against the
 /// source text the scan was rendered from. CER = Levenshtein distance /
 /// reference length in characters, the standard OCR measure (Rice, Kanai
@@ -131,11 +157,14 @@ fn questions_answerable_only_from_scans_cite_their_gold_page() {
     if !ocr_tools() {
         return;
     }
-    let scanned: Vec<String> = onrecord::demo::load_entries(&source_dir())
+    let (scans, layered): (Vec<_>, Vec<_>) = onrecord::demo::load_entries(&source_dir())
         .unwrap()
         .into_iter()
-        .filter(|e| e.scan.is_some())
-        .map(|e| e.id)
+        .partition(|e| e.scan.is_some());
+    let scanned: Vec<String> = scans.into_iter().map(|e| e.id).collect();
+    let layered: Vec<String> = layered
+        .iter()
+        .map(|e| std::fs::read_to_string(source_dir().join(&e.file)).unwrap())
         .collect();
     let text = std::fs::read_to_string(source_dir().join("questions.jsonl")).unwrap();
     let index = Index::open(demo_index()).unwrap();
@@ -163,29 +192,15 @@ fn questions_answerable_only_from_scans_cite_their_gold_page() {
             .iter()
             .map(|a| a.as_str().unwrap())
             .collect();
-        let elsewhere = onrecord::demo::load_entries(&source_dir())
-            .unwrap()
-            .into_iter()
-            .filter(|e| e.scan.is_none())
-            .any(|e| {
-                let t = std::fs::read_to_string(source_dir().join(&e.file)).unwrap();
-                answers.iter().any(|a| t.contains(a))
-            });
+        let elsewhere = layered
+            .iter()
+            .any(|t| answers.iter().any(|a| t.contains(a)));
         if elsewhere {
             continue;
         }
         asked += 1;
         let question = q["question"].as_str().unwrap();
-        let a = ask(
-            &index,
-            question,
-            &Filters::default(),
-            10,
-            &Extractive::default(),
-            serde_json::Value::Null,
-            &RulesJudge::default(),
-        )
-        .unwrap();
+        let a = ask_plain(&index, question);
         let hit = a.supported().flat_map(|s| &s.citations).find(|c| {
             gold.iter().any(|(d, p)| {
                 *d == c.doc_id.0 && (c.page..=c.end_page.unwrap_or(c.page)).contains(p)
@@ -268,16 +283,7 @@ fn quotes_from_a_degraded_scan_are_flagged() {
         page.words
     );
     let index = Index::open(idx.path()).unwrap();
-    let a = ask(
-        &index,
-        "When was the crane hire invoice received?",
-        &Filters::default(),
-        10,
-        &Extractive::default(),
-        serde_json::Value::Null,
-        &RulesJudge::default(),
-    )
-    .unwrap();
+    let a = ask_plain(&index, "When was the crane hire invoice received?");
     let cites: Vec<_> = a.sentences.iter().flat_map(|s| &s.citations).collect();
     assert!(
         cites.iter().any(|c| c.ocr.as_ref().is_some_and(|o| o.low)),
@@ -381,26 +387,14 @@ fn reingest_takes_ocr_from_the_cache() {
     let dir = tempfile::tempdir().unwrap();
     let idx = tempfile::tempdir().unwrap();
     let pdf = dir.path().join("memo.pdf");
-    let pages = [
-        "MEMO\n\nThe east berth fender panels were replaced in 2019 at a cost of $212,000.",
-        "The contractor was Kellrow Marine. The work took eleven days.",
-    ];
-    let pdf_pages: Vec<PdfPage> = pages.iter().flat_map(|p| lines(p)).collect();
-    write_scan(
+    light_scan(
         &pdf,
-        "memo",
-        &pdf_pages,
-        &ScanSpec {
-            skew: 0.4,
-            noise: 0.02,
-            toner: 0.8,
-            stamp: None,
-            dpi: None,
-            blur: 0,
-        },
+        &[
+            "MEMO\n\nThe east berth fender panels were replaced in 2019 at a cost of $212,000.",
+            "The contractor was Kellrow Marine. The work took eleven days.",
+        ],
         3,
-    )
-    .unwrap();
+    );
     let cfg = IngestConfig::default();
     let (r1, d1) = ingest_with(idx.path(), std::slice::from_ref(&pdf), &cfg);
     assert_eq!(
@@ -447,21 +441,11 @@ fn bad_page_images_and_failing_ocr_are_reported_and_ingest_goes_on() {
     let idx = tempfile::tempdir().unwrap();
     // Page 1 a good scan; page 2's JPEG data is not a JPEG.
     let good = dir.path().join("good.pdf");
-    write_scan(
+    light_scan(
         &good,
-        "t",
-        &lines("The ferry ramp hinge pins were replaced in June 2019."),
-        &ScanSpec {
-            skew: 0.3,
-            noise: 0.02,
-            toner: 0.85,
-            stamp: None,
-            dpi: None,
-            blur: 0,
-        },
+        &["The ferry ramp hinge pins were replaced in June 2019."],
         5,
-    )
-    .unwrap();
+    );
     let page1 =
         onrecord::ocr::engine::render_page(&good, 1, 150, std::time::Duration::from_secs(60))
             .unwrap()
@@ -538,21 +522,11 @@ fn missing_tesseract_says_how_to_install_it_and_carries_on() {
     let dir = tempfile::tempdir().unwrap();
     let idx = tempfile::tempdir().unwrap();
     let scan = dir.path().join("scan.pdf");
-    write_scan(
+    light_scan(
         &scan,
-        "t",
-        &lines("The ferry ramp hinge pins were replaced in June 2019."),
-        &ScanSpec {
-            skew: 0.3,
-            noise: 0.02,
-            toner: 0.85,
-            stamp: None,
-            dpi: None,
-            blur: 0,
-        },
+        &["The ferry ramp hinge pins were replaced in June 2019."],
         9,
-    )
-    .unwrap();
+    );
     let note = write(dir.path(), "note.txt", "A plain note about the ferry ramp.");
     let missing = IngestConfig {
         ocr_settings: OcrSettings {
