@@ -29,7 +29,7 @@ use std::collections::HashMap;
 pub const ANSWER_SCHEMA_VERSION: u32 = 1;
 
 /// The caution shown with every answer.
-pub const CAUTION: &str = "onrecord checks that each sentence is supported by the cited text. It does not establish that the documents are accurate, complete or authentic. Records may be wrong, redacted or out of context. Check the original pages and apply legal review (defamation, privacy) before publication.";
+pub const CAUTION: &str = "onrecord checks that each sentence is supported by the cited text. It does not establish that the documents are accurate, complete or authentic. Records may be wrong, forged, redacted or out of context. Check the original pages and apply legal review (defamation, privacy) before publication.";
 
 /// How an answer was made, recorded with it.
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]

@@ -628,6 +628,42 @@ enum Command {
         #[arg(long)]
         json: bool,
     },
+    /// Serve onrecord's page and HTTP JSON API to a browser on this computer.
+    ///
+    /// Open the address it prints: ask with filters, read each verified
+    /// sentence with its quote and page, open the page with the quote marked,
+    /// see what was struck and why, download the answer (Markdown, CSV, JSON)
+    /// and check an earlier answer again. Everything the page needs is inside
+    /// onrecord; it fetches nothing from elsewhere.
+    ///
+    /// By default it listens on 127.0.0.1 only. To let other machines in, bind another
+    /// address and set a token (16 characters or more), which every request
+    /// must then carry: the printed address ends in ?token=..., and API
+    /// clients send "Authorization: Bearer TOKEN". Records may be sensitive:
+    /// think before opening the server to a network.
+    Serve {
+        #[command(flatten)]
+        index: IndexArg,
+        /// Serve the bundled demo release (built under .onrecord-demo when needed).
+        #[arg(long)]
+        demo: bool,
+        /// Address and port to listen on.
+        #[arg(long, default_value = "127.0.0.1:8417", value_name = "ADDR:PORT")]
+        bind: std::net::SocketAddr,
+        /// Token every request must carry; needed for a non-loopback --bind.
+        /// Prefer the ONRECORD_TOKEN variable: a command line is visible to
+        /// other users of the machine.
+        #[arg(
+            long,
+            env = "ONRECORD_TOKEN",
+            hide_env_values = true,
+            value_name = "TOKEN"
+        )]
+        token: Option<String>,
+        /// Requests worked on at once. [default: one per core]
+        #[arg(long, value_name = "N")]
+        workers: Option<usize>,
+    },
     /// Measure quality on open data.
     #[command(subcommand)]
     Eval(EvalCommand),
@@ -1030,6 +1066,13 @@ pub fn run() -> Result<ExitCode> {
             workdir,
             json,
         } => cmd_demo(source, &workdir, &choice, json),
+        Command::Serve {
+            index,
+            demo,
+            bind,
+            token,
+            workers,
+        } => cmd_serve(index.index, demo, bind, token, workers, &choice),
         Command::Reindex { index, json, quiet } => cmd_reindex(
             &index.index,
             &choice,
@@ -1854,13 +1897,8 @@ fn cmd_replay(args: ReplayArgs, format: Export) -> Result<ExitCode> {
             (Some(file), None) => {
                 let text = std::fs::read_to_string(file)
                     .with_context(|| format!("cannot read {}", file.display()))?;
-                let (claims, format) = if text.trim_start().starts_with('{') {
-                    (read_answer_json(file, &text)?, "json")
-                } else {
-                    let c = replay::markdown::parse(&text)
-                        .map_err(|m| anyhow::anyhow!("{}: {m}", file.display()))?;
-                    (c, "markdown")
-                };
+                let (claims, format) = replay::read_answer(&text)
+                    .map_err(|m| anyhow::anyhow!("{}: {m}", file.display()))?;
                 let input = ReplayInput {
                     source: file.display().to_string(),
                     format: format.into(),
@@ -1886,19 +1924,7 @@ fn cmd_replay(args: ReplayArgs, format: Export) -> Result<ExitCode> {
             return Ok(ExitCode::from(UNUSABLE));
         }
     };
-    let judge = args
-        .judge
-        .or_else(|| {
-            claims.judge.as_deref().map(|j| {
-                if j.starts_with("learned") {
-                    JudgeKind::Learned
-                } else {
-                    JudgeKind::Rules
-                }
-            })
-        })
-        .unwrap_or_default()
-        .build();
+    let judge = args.judge.unwrap_or_else(|| claims.judge_kind()).build();
     let opened;
     let mut pages: Box<dyn PageSource + '_> = match &args.sources {
         Some(dir) => {
@@ -1939,27 +1965,6 @@ fn cmd_replay(args: ReplayArgs, format: Export) -> Result<ExitCode> {
         Export::Text => write!(out, "{}", replay::render_text(&report))?,
     }
     Ok(ExitCode::from(report.exit_code))
-}
-
-/// An answer record from `ask --json`, as claims to replay.
-fn read_answer_json(file: &std::path::Path, text: &str) -> Result<onrecord::replay::Claims> {
-    let v: serde_json::Value = serde_json::from_str(text)
-        .with_context(|| format!("{}: not valid JSON", file.display()))?;
-    match v.get("schema_version").and_then(serde_json::Value::as_u64) {
-        Some(n) if n == u64::from(answer::ANSWER_SCHEMA_VERSION) => {}
-        Some(n) => bail!(
-            "{}: answer record schema version {n}; this onrecord reads version {}",
-            file.display(),
-            answer::ANSWER_SCHEMA_VERSION
-        ),
-        None => bail!(
-            "{}: not an answer record (no schema_version); give JSON from `ask --json` or a Markdown answer",
-            file.display()
-        ),
-    }
-    let a: AnswerRecord = serde_json::from_value(v)
-        .with_context(|| format!("{}: not an answer record from `ask --json`", file.display()))?;
-    Ok(onrecord::replay::claims_from_record(&a))
 }
 
 fn cmd_history(index: &std::path::Path, limit: usize, json: bool) -> Result<ExitCode> {
@@ -2107,38 +2112,7 @@ fn cmd_search(
     let used = idx.retriever();
     let mut out = std::io::stdout().lock();
     if json {
-        let rows: Vec<serde_json::Value> = hits
-            .iter()
-            .map(|h| {
-                let s = retrieve::snippet(&h.chunk.text, query, 240);
-                serde_json::json!({
-                    "rank": h.rank,
-                    "score": h.score,
-                    "retriever": h.retriever,
-                    "signals": h.signals,
-                    "chunk_id": h.chunk.id,
-                    "doc_id": h.chunk.doc_id,
-                    "title": h.chunk.title,
-                    "organisation": h.chunk.organisation,
-                    "date": h.chunk.date,
-                    "page": h.chunk.span.start_page,
-                    "end_page": h.chunk.span.end_page,
-                    "snippet": s.text,
-                    "highlights": s.highlights,
-                    "hash": h.chunk.hash,
-                })
-            })
-            .collect();
-        print_json(&serde_json::json!({
-            "query": query,
-            "filters": filters,
-            "retriever": used.name(),
-            "embedder": (used != RetrieverKind::Bm25).then(|| idx.embedder.as_ref().map(|e| e.id().to_owned())).flatten(),
-            "fusion": (used == RetrieverKind::Hybrid).then(|| serde_json::json!({
-                "method": "reciprocal rank fusion", "k": idx.options.rrf_k,
-                "weights": idx.options.weights, "depth": idx.options.depth})),
-            "results": rows,
-        }))?;
+        print_json(&retrieve::search_record(idx, query, filters, &hits))?;
         return Ok(ExitCode::SUCCESS);
     }
     if hits.is_empty() {
@@ -2231,6 +2205,73 @@ fn mark(s: &retrieve::Snippet, tty: bool) -> String {
     }
     out.push_str(&s.text[at..]);
     out
+}
+
+fn cmd_serve(
+    index: PathBuf,
+    demo: bool,
+    bind: std::net::SocketAddr,
+    token: Option<String>,
+    workers: Option<usize>,
+    choice: &EmbedderChoice,
+) -> Result<ExitCode> {
+    use onrecord::web;
+    let token = token.filter(|t| !t.is_empty());
+    web::check_bind(bind, token.as_deref())?;
+    let index = if demo {
+        let source = onrecord::demo::default_source_dir();
+        let progress = std::io::stderr().is_terminal();
+        demo_index(&source, std::path::Path::new(".onrecord-demo"), progress)?.0
+    } else {
+        index
+    };
+    let embedder = load_embedder(choice)?;
+    if let Some(e) = &embedder {
+        onrecord::vectors::update(&index, e.as_ref(), std::io::stderr().is_terminal())?;
+    }
+    let mut limits = web::Limits::default();
+    if let Some(n) = workers {
+        if n == 0 {
+            bail!("--workers must be at least 1");
+        }
+        limits.workers = n;
+    }
+    let rt = tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(2)
+        .enable_all()
+        .build()
+        .context("cannot start the server's runtime")?;
+    rt.block_on(async move {
+        let server = web::Server::bind(web::ServeOptions {
+            index: index.clone(),
+            bind,
+            token: token.clone(),
+            embedder,
+            limits,
+        })
+        .await?;
+        let addr = server.addr;
+        let mut err = std::io::stderr().lock();
+        writeln!(err, "Serving the index at {}", index.display())?;
+        match &token {
+            Some(t) => writeln!(err, "Open http://{addr}/?token={t}")?,
+            None => writeln!(err, "Open http://{addr}/ in a browser on this computer")?,
+        }
+        writeln!(
+            err,
+            "API: http://{addr}/api/info (see the README). Stop with Ctrl+C."
+        )?;
+        writeln!(err, "\nCaution: {CAUTION}")?;
+        drop(err);
+        server
+            .run(async {
+                let _ = tokio::signal::ctrl_c().await;
+            })
+            .await
+            .context("the server stopped with an error")?;
+        anyhow::Ok(())
+    })?;
+    Ok(ExitCode::SUCCESS)
 }
 
 fn cmd_docs(index: &std::path::Path, filters: &Filters, json: bool) -> Result<ExitCode> {

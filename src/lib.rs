@@ -30,6 +30,7 @@ pub mod text;
 pub mod types;
 pub mod vectors;
 pub mod verify;
+pub mod web;
 
 pub use error::{Error, Result};
 

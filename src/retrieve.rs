@@ -321,6 +321,52 @@ impl Index {
 }
 
 /// A window of about `width` characters of `text` around the densest run of
+/// The search record `search --json` prints and `/api/search` returns:
+/// the query, filters and retriever, and each result with its page span,
+/// highlighted snippet and each retriever's rank and score.
+pub fn search_record(
+    idx: &Index,
+    query: &str,
+    filters: &Filters,
+    hits: &[Retrieved],
+) -> serde_json::Value {
+    let used = idx.retriever();
+    let rows: Vec<serde_json::Value> = hits
+        .iter()
+        .map(|h| {
+            let s = snippet(&h.chunk.text, query, 240);
+            serde_json::json!({
+                "rank": h.rank,
+                "score": h.score,
+                "retriever": h.retriever,
+                "signals": h.signals,
+                "chunk_id": h.chunk.id,
+                "doc_id": h.chunk.doc_id,
+                "title": h.chunk.title,
+                "organisation": h.chunk.organisation,
+                "date": h.chunk.date,
+                "page": h.chunk.span.start_page,
+                "end_page": h.chunk.span.end_page,
+                "snippet": s.text,
+                "highlights": s.highlights,
+                "hash": h.chunk.hash,
+            })
+        })
+        .collect();
+    serde_json::json!({
+        "query": query,
+        "filters": filters,
+        "retriever": used.name(),
+        "embedder": (used != RetrieverKind::Bm25)
+            .then(|| idx.embedder.as_ref().map(|e| e.id().to_owned()))
+            .flatten(),
+        "fusion": (used == RetrieverKind::Hybrid).then(|| serde_json::json!({
+            "method": "reciprocal rank fusion", "k": idx.options.rrf_k,
+            "weights": idx.options.weights, "depth": idx.options.depth})),
+        "results": rows,
+    })
+}
+
 /// query-term matches, with white space folded and matches marked.
 pub fn snippet(text: &str, query: &str, width: usize) -> Snippet {
     let text = fold_ws(&text.replace(crate::chunk::PAGE_BREAK, " "));

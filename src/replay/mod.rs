@@ -112,8 +112,48 @@ pub struct Claims {
     pub claims: Vec<Claim>,
 }
 
+impl Claims {
+    /// The judge to replay with: the one that made the answer, else the default.
+    pub fn judge_kind(&self) -> crate::verify::JudgeKind {
+        match self.judge.as_deref() {
+            Some(j) if j.starts_with("learned") => crate::verify::JudgeKind::Learned,
+            Some(_) => crate::verify::JudgeKind::Rules,
+            None => crate::verify::JudgeKind::default(),
+        }
+    }
+}
+
 /// The supported sentences of an answer record, as claims to replay.
 /// Struck sentences were never part of the answer and are not replayed.
+/// Reads an answer given as text: an answer record from `ask --json`
+/// (JSON) or a Markdown answer from `ask --markdown`. Returns the claims and
+/// the format's name; the error says what the text is not.
+pub fn read_answer(text: &str) -> Result<(Claims, &'static str), String> {
+    if !text.trim_start().starts_with('{') {
+        return Ok((markdown::parse(text)?, "markdown"));
+    }
+    let v: serde_json::Value =
+        serde_json::from_str(text).map_err(|e| format!("not valid JSON: {e}"))?;
+    let version = crate::answer::ANSWER_SCHEMA_VERSION;
+    match v.get("schema_version").and_then(serde_json::Value::as_u64) {
+        Some(n) if n == u64::from(version) => {}
+        Some(n) => {
+            return Err(format!(
+                "answer record schema version {n}; this onrecord reads version {version}"
+            ));
+        }
+        None => {
+            return Err(
+                "not an answer record (no schema_version); give JSON from `ask --json` or a Markdown answer"
+                    .into(),
+            );
+        }
+    }
+    let a: AnswerRecord = serde_json::from_value(v)
+        .map_err(|e| format!("not an answer record from `ask --json`: {e}"))?;
+    Ok((claims_from_record(&a), "json"))
+}
+
 pub fn claims_from_record(a: &AnswerRecord) -> Claims {
     let chunk_hash = |id: ChunkId| {
         a.retrieved

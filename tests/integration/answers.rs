@@ -1,9 +1,9 @@
 //! Ask end to end on a small invented release: verified sentences carry the
 //! right page and the page's own words; unrelated questions abstain.
 
-use crate::support::{ingest, write};
+use crate::support::{self, ingest, write};
 use onrecord::answer::{ANSWER_SCHEMA_VERSION, ask};
-use onrecord::draft::{DraftRequest, Drafter, Extractive};
+use onrecord::draft::{DraftRequest, Drafter};
 use onrecord::error::Result;
 use onrecord::retrieve::Index;
 use onrecord::types::{DocId, Filters};
@@ -29,24 +29,11 @@ fn release() -> (tempfile::TempDir, tempfile::TempDir) {
     (src, idx)
 }
 
-fn ask_default(index: &Index, q: &str) -> onrecord::answer::AnswerRecord {
-    ask(
-        index,
-        q,
-        &Filters::default(),
-        10,
-        &Extractive::default(),
-        serde_json::Value::Null,
-        &RulesJudge::default(),
-    )
-    .unwrap()
-}
-
 #[test]
 fn an_answer_quotes_the_page_it_cites() {
     let (_src, idx) = release();
     let index = Index::open(idx.path()).unwrap();
-    let a = ask_default(&index, "By how much did the Pier 3 budget increase?");
+    let a = support::ask_extractive(&index, "By how much did the Pier 3 budget increase?");
     assert_eq!(a.schema_version, ANSWER_SCHEMA_VERSION);
     assert!(!a.abstained, "{a:#?}");
     let s = a.supported().next().unwrap();
@@ -74,7 +61,7 @@ fn questions_the_records_do_not_answer_abstain() {
         "What is the salary of the harbour master?",
         "Which airline serves the northern islands?",
     ] {
-        let a = ask_default(&index, q);
+        let a = support::ask_extractive(&index, q);
         assert!(a.abstained, "{q}: {a:#?}");
         assert!(a.supported().next().is_none());
     }

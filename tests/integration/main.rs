@@ -2,6 +2,7 @@
 //! `support` holds the shared helpers.
 
 mod answers;
+mod browser;
 mod cli;
 mod demo;
 mod drafting;
@@ -14,6 +15,7 @@ mod replay;
 mod retrieval;
 mod support;
 mod verifier;
+mod web;
 
 /// As in the binary: the embedding model allocates many short-lived tensors.
 #[global_allocator]

@@ -2,17 +2,14 @@
 //! were made from, answers from scan-only pages citing their gold page,
 //! low-confidence flags, the OCR cache, and bad input.
 
-use crate::support::{demo_index, ingest_with, write};
-use onrecord::answer::ask;
+use crate::support::{self, demo_index, ingest_with, write};
 use onrecord::demo::scan::{ScanSpec, write_scan};
-use onrecord::draft::Extractive;
 use onrecord::extract::pdf::{PdfPage, write_scanned_pdf};
 use onrecord::ingest::{IngestConfig, Severity};
 use onrecord::ocr::engine::{OcrSettings, Tesseract};
 use onrecord::retrieve::Index;
 use onrecord::store::Store;
-use onrecord::types::{DocId, Filters};
-use onrecord::verify::RulesJudge;
+use onrecord::types::DocId;
 use std::path::{Path, PathBuf};
 
 /// Whether tesseract (with English) and pdftoppm are here. Their absence is
@@ -69,20 +66,6 @@ fn light_scan(path: &Path, pages: &[&str], seed: u64) {
         stamp: None,
     };
     write_scan(path, "t", &pages, &spec, seed).unwrap();
-}
-
-/// The extractive drafter and the rules judge, as `ask` runs by default.
-fn ask_plain(index: &Index, question: &str) -> onrecord::answer::AnswerRecord {
-    ask(
-        index,
-        question,
-        &Filters::default(),
-        10,
-        &Extractive::default(),
-        serde_json::Value::Null,
-        &RulesJudge::default(),
-    )
-    .unwrap()
 }
 
 /// Character error rate of OCR on every scanned demo page, against the
@@ -200,7 +183,7 @@ fn questions_answerable_only_from_scans_cite_their_gold_page() {
         }
         asked += 1;
         let question = q["question"].as_str().unwrap();
-        let a = ask_plain(&index, question);
+        let a = support::ask_extractive(&index, question);
         let hit = a.supported().flat_map(|s| &s.citations).find(|c| {
             gold.iter().any(|(d, p)| {
                 *d == c.doc_id.0 && (c.page..=c.end_page.unwrap_or(c.page)).contains(p)
@@ -283,7 +266,7 @@ fn quotes_from_a_degraded_scan_are_flagged() {
         page.words
     );
     let index = Index::open(idx.path()).unwrap();
-    let a = ask_plain(&index, "When was the crane hire invoice received?");
+    let a = support::ask_extractive(&index, "When was the crane hire invoice received?");
     let cites: Vec<_> = a.sentences.iter().flat_map(|s| &s.citations).collect();
     assert!(
         cites.iter().any(|c| c.ocr.as_ref().is_some_and(|o| o.low)),

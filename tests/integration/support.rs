@@ -231,3 +231,104 @@ pub fn demo_index() -> &'static Path {
         idx
     })
 }
+
+/// A copy of the demo index for the web tests, which log answers into it
+/// (so other tests' demo index stays as built).
+pub fn web_index() -> &'static Path {
+    use std::sync::OnceLock;
+    static DIR: OnceLock<PathBuf> = OnceLock::new();
+    DIR.get_or_init(|| {
+        let to = tempfile::tempdir().unwrap().keep().join("index");
+        copy_dir(demo_index(), &to);
+        to
+    })
+}
+
+/// Copies a folder (an index, say) file by file.
+pub fn copy_dir(from: &Path, to: &Path) {
+    for e in walkdir::WalkDir::new(from) {
+        let e = e.unwrap();
+        let dst = to.join(e.path().strip_prefix(from).unwrap());
+        if e.file_type().is_dir() {
+            std::fs::create_dir_all(&dst).unwrap();
+        } else {
+            std::fs::copy(e.path(), &dst).unwrap();
+        }
+    }
+}
+
+/// `onrecord serve` on a free loopback port, in its own runtime thread,
+/// stopped when dropped.
+pub struct TestServer {
+    pub addr: std::net::SocketAddr,
+    stop: Option<tokio::sync::oneshot::Sender<()>>,
+    thread: Option<std::thread::JoinHandle<()>>,
+}
+
+impl TestServer {
+    pub fn start(index: &Path, token: Option<&str>) -> TestServer {
+        let (addr_tx, addr_rx) = std::sync::mpsc::channel();
+        let (stop, stopped) = tokio::sync::oneshot::channel::<()>();
+        let opts = onrecord::web::ServeOptions {
+            index: index.to_path_buf(),
+            bind: "127.0.0.1:0".parse().unwrap(),
+            token: token.map(str::to_string),
+            embedder: None,
+            limits: onrecord::web::Limits::default(),
+        };
+        let thread = std::thread::spawn(move || {
+            let rt = tokio::runtime::Builder::new_multi_thread()
+                .worker_threads(2)
+                .enable_all()
+                .build()
+                .unwrap();
+            rt.block_on(async move {
+                let server = onrecord::web::Server::bind(opts).await.unwrap();
+                addr_tx.send(server.addr).unwrap();
+                server
+                    .run(async {
+                        let _ = stopped.await;
+                    })
+                    .await
+                    .unwrap();
+            });
+        });
+        let addr = addr_rx
+            .recv_timeout(std::time::Duration::from_secs(60))
+            .unwrap();
+        TestServer {
+            addr,
+            stop: Some(stop),
+            thread: Some(thread),
+        }
+    }
+}
+
+impl Drop for TestServer {
+    fn drop(&mut self) {
+        if let Some(s) = self.stop.take() {
+            let _ = s.send(());
+        }
+        if let Some(t) = self.thread.take() {
+            let _ = t.join();
+        }
+    }
+}
+
+/// One answer with the defaults: the extractive drafter, the rules judge,
+/// k = 10, no filters.
+pub fn ask_extractive(
+    index: &onrecord::retrieve::Index,
+    question: &str,
+) -> onrecord::answer::AnswerRecord {
+    onrecord::answer::ask(
+        index,
+        question,
+        &onrecord::types::Filters::default(),
+        10,
+        &onrecord::draft::Extractive::default(),
+        serde_json::Value::Null,
+        &onrecord::verify::RulesJudge::default(),
+    )
+    .unwrap()
+}
