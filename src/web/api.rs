@@ -726,6 +726,24 @@ impl Format {
         }
     }
 
+    /// A record as a file's bytes: pretty JSON, or the CLI's Markdown or CSV.
+    fn render<T: serde::Serialize>(
+        self,
+        value: &T,
+        markdown: fn(&T) -> String,
+        csv: impl FnOnce(&T, &mut Vec<u8>) -> csv::Result<()>,
+    ) -> Result<Vec<u8>, ApiError> {
+        match self {
+            Format::Json => serde_json::to_vec_pretty(value).map_err(ApiError::internal),
+            Format::Markdown => Ok(markdown(value).into_bytes()),
+            Format::Csv => {
+                let mut out = Vec::new();
+                csv(value, &mut out).map_err(ApiError::internal)?;
+                Ok(out)
+            }
+        }
+    }
+
     fn file(self, stem: &str, body: Vec<u8>) -> Response {
         let (ext, mime) = match self {
             Format::Json => ("json", "application/json"),
@@ -772,15 +790,9 @@ pub async fn export(
             answer::ANSWER_SCHEMA_VERSION
         )));
     }
-    let body = match format {
-        Format::Json => serde_json::to_vec_pretty(&a).map_err(ApiError::internal)?,
-        Format::Markdown => crate::replay::markdown::render_answer(&a).into_bytes(),
-        Format::Csv => {
-            let mut out = Vec::new();
-            crate::replay::table::write_answer(&a, &mut out).map_err(ApiError::internal)?;
-            out
-        }
-    };
+    let body = format.render(&a, crate::replay::markdown::render_answer, |a, out| {
+        crate::replay::table::write_answer(a, out)
+    })?;
     Ok(format.file(&stem("answer", &a.created_at), body))
 }
 
@@ -860,42 +872,22 @@ pub async fn replay(
             ))
         })
         .await?;
-    let body = match format {
-        Format::Json => return Ok(Json(report).into_response()),
-        Format::Markdown => crate::replay::markdown::render_replay(&report).into_bytes(),
-        Format::Csv => {
-            let mut out = Vec::new();
-            crate::replay::table::write_replay(&report, &mut out).map_err(ApiError::internal)?;
-            out
-        }
-    };
+    if format == Format::Json {
+        return Ok(Json(report).into_response());
+    }
+    let body = format.render(&report, crate::replay::markdown::render_replay, |r, out| {
+        crate::replay::table::write_replay(r, out)
+    })?;
     Ok(format.file(&stem("replay", &report.replayed_at), body))
-}
-
-#[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct DocsQuery {
-    #[serde(default)]
-    from: Option<String>,
-    #[serde(default)]
-    to: Option<String>,
-    #[serde(default)]
-    org: Option<String>,
 }
 
 /// `GET /api/docs[?from&to&org]`: the list `docs --json` prints.
 pub async fn docs(
     State(st): State<AppState>,
-    q: Params<DocsQuery>,
+    q: Params<FilterBody>,
 ) -> Result<Json<Value>, ApiError> {
     let Query(q) = q?;
-    let filters = FilterBody {
-        from: q.from,
-        to: q.to,
-        org: q.org,
-        docs: vec![],
-    }
-    .resolve()?;
+    let filters = q.resolve()?;
     st.with_index(move |idx| {
         let store = &idx.store;
         let allowed = store.docs_matching(&filters).map_err(ApiError::internal)?;

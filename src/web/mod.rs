@@ -95,6 +95,11 @@ pub enum ServeError {
     NeedsToken(SocketAddr),
     #[error("the token must be at least 16 characters (got {0})")]
     ShortToken(usize),
+    #[error(
+        "the token may hold only letters, digits and - _ . ~ + / = (it travels in an address and a cookie); \
+         for example: head -c 24 /dev/urandom | base64"
+    )]
+    TokenChars,
     #[error("cannot listen on {addr}: {source}")]
     Bind {
         addr: SocketAddr,
@@ -375,6 +380,13 @@ pub fn check_bind(bind: SocketAddr, token: Option<&str>) -> Result<(), ServeErro
     match token {
         None if !bind.ip().is_loopback() => Err(ServeError::NeedsToken(bind)),
         Some(t) if t.chars().count() < 16 => Err(ServeError::ShortToken(t.chars().count())),
+        Some(t)
+            if !t
+                .chars()
+                .all(|c| c.is_ascii_alphanumeric() || "-_.~+/=".contains(c)) =>
+        {
+            Err(ServeError::TokenChars)
+        }
         _ => Ok(()),
     }
 }

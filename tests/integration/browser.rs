@@ -437,19 +437,27 @@ fn browser_asks_reads_the_page_toggles_struck_downloads_and_stays_inert() {
         .unwrap()
         .text()
         .unwrap();
-    let tampered = md.replacen("22 April 2024", "29 April 2024", 1);
-    assert_ne!(md, tampered);
+    // Pasted as it was saved: every sentence holds.
     b.js(
         "document.getElementById('replay-text').value = arguments[0]",
-        json!([tampered]),
+        json!([md]),
     );
-    b.click("#replay");
-    b.wait(
-        "the replay verdicts",
-        "return !document.getElementById('replay-result').hidden",
+    let verdicts = replay_in_page(&b);
+    assert!(
+        verdicts.contains("holds") && !verdicts.contains("fails"),
+        "{verdicts}"
+    );
+    // Uploaded as a file, with a date changed after the fact: it fails.
+    let tampered = md.replacen("22 April 2024", "29 April 2024", 1);
+    assert_ne!(md, tampered);
+    let upload = tempfile::Builder::new().suffix(".md").tempfile().unwrap();
+    std::fs::write(upload.path(), &tampered).unwrap();
+    b.js(
+        "document.getElementById('replay-text').value = ''",
         json!([]),
     );
-    let verdicts = b.text("#replay-table tbody");
+    b.keys("#replay-file", &upload.path().display().to_string());
+    let verdicts = replay_in_page(&b);
     assert!(verdicts.contains("fails"), "{verdicts}");
 
     // 200% zoom: a 1280-pixel window at twice the size is 640 CSS pixels
@@ -464,6 +472,21 @@ fn browser_asks_reads_the_page_toggles_struck_downloads_and_stays_inert() {
         "sideways scroll of {overflow} px at 640 px"
     );
     drop(server);
+}
+
+/// Presses "Check again" and returns the verdict table's text once shown.
+fn replay_in_page(b: &Browser) -> String {
+    b.js(
+        "document.getElementById('replay-result').hidden = true",
+        json!([]),
+    );
+    b.click("#replay");
+    b.wait(
+        "the replay verdicts",
+        "return !document.getElementById('replay-result').hidden",
+        json!([]),
+    );
+    b.text("#replay-table tbody")
 }
 
 fn wait_for_download(dir: &Path, ext: &str) -> PathBuf {

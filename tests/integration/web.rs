@@ -45,6 +45,9 @@ impl Reply {
             )
         })
     }
+    fn content_type(&self) -> &str {
+        self.headers[header::CONTENT_TYPE].to_str().unwrap()
+    }
     fn text(&self) -> String {
         String::from_utf8(self.body.clone()).unwrap()
     }
@@ -291,12 +294,7 @@ async fn the_stream_reports_each_stage_then_the_answer() {
     )
     .await;
     assert_eq!(r.status, StatusCode::OK);
-    assert!(
-        r.headers["content-type"]
-            .to_str()
-            .unwrap()
-            .starts_with("text/event-stream")
-    );
+    assert!(r.content_type().starts_with("text/event-stream"));
     let ev = events(&r.text());
     let stages: Vec<&str> = ev
         .iter()
@@ -428,12 +426,7 @@ async fn exports_match_the_cli_formats_and_replay_catches_a_changed_quote() {
     )
     .await;
     assert_eq!(r.status, StatusCode::OK);
-    assert!(
-        r.headers["content-type"]
-            .to_str()
-            .unwrap()
-            .starts_with("text/csv")
-    );
+    assert!(r.content_type().starts_with("text/csv"));
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
@@ -463,182 +456,35 @@ async fn bad_input_gets_a_4xx_that_says_what_to_change() {
     let app = plain();
     let long = "why ".repeat(400);
     let big = json!({"question": "x".repeat(200_000)});
+    #[rustfmt::skip]
     let cases: Vec<(&str, Request<Body>, StatusCode, &str)> = vec![
-        (
-            "no question",
-            post("/api/ask", &json!({})),
-            StatusCode::UNPROCESSABLE_ENTITY,
-            "question",
-        ),
-        (
-            "empty question",
-            post("/api/ask", &json!({"question": "  "})),
-            StatusCode::BAD_REQUEST,
-            "question is empty",
-        ),
-        (
-            "long question",
-            post("/api/ask", &json!({"question": long})),
-            StatusCode::BAD_REQUEST,
-            "the limit is 1000",
-        ),
-        (
-            "k 0",
-            post("/api/ask", &json!({"question": "q", "k": 0})),
-            StatusCode::BAD_REQUEST,
-            "k must be 1 to 50",
-        ),
-        (
-            "k huge",
-            post("/api/search", &json!({"query": "q", "k": 5000})),
-            StatusCode::BAD_REQUEST,
-            "k must be 1 to 50",
-        ),
-        (
-            "retriever",
-            post("/api/ask", &json!({"question": "q", "retriever": "magic"})),
-            StatusCode::BAD_REQUEST,
-            "unknown retriever",
-        ),
-        (
-            "no embedder",
-            post("/api/search", &json!({"query": "q", "retriever": "hybrid"})),
-            StatusCode::BAD_REQUEST,
-            "needs the embedding model",
-        ),
-        (
-            "drafter",
-            post("/api/ask", &json!({"question": "q", "drafter": "oracle"})),
-            StatusCode::BAD_REQUEST,
-            "not available",
-        ),
-        (
-            "judge",
-            post("/api/ask", &json!({"question": "q", "judge": "vibes"})),
-            StatusCode::BAD_REQUEST,
-            "unknown judge",
-        ),
-        (
-            "bad date",
-            post(
-                "/api/ask",
-                &json!({"question": "q", "filters": {"from": "2021-13-01"}}),
-            ),
-            StatusCode::BAD_REQUEST,
-            "filters.from",
-        ),
-        (
-            "empty range",
-            post(
-                "/api/ask",
-                &json!({"question": "q", "filters": {"from": "2023-01-01", "to": "2022-01-01"}}),
-            ),
-            StatusCode::BAD_REQUEST,
-            "date range is empty",
-        ),
-        (
-            "unknown doc",
-            post(
-                "/api/ask",
-                &json!({"question": "q", "filters": {"docs": ["no-such-doc"]}}),
-            ),
-            StatusCode::BAD_REQUEST,
-            "no document \"no-such-doc\"",
-        ),
-        (
-            "unknown field",
-            post("/api/ask", &json!({"question": "q", "temperature": 2})),
-            StatusCode::UNPROCESSABLE_ENTITY,
-            "unknown field",
-        ),
-        (
-            "not JSON",
-            post_raw("/api/ask", "application/json", "{question:".into()),
-            StatusCode::BAD_REQUEST,
-            "",
-        ),
-        (
-            "form post",
-            post_raw(
-                "/api/ask",
-                "application/x-www-form-urlencoded",
-                "question=q".into(),
-            ),
-            StatusCode::UNSUPPORTED_MEDIA_TYPE,
-            "",
-        ),
-        (
-            "too big",
-            post("/api/ask", &big),
-            StatusCode::PAYLOAD_TOO_LARGE,
-            "larger than this server accepts",
-        ),
-        (
-            "no page",
-            get("/api/page?doc=paha-web-2024-04-pier3-reopening&page=99"),
-            StatusCode::NOT_FOUND,
-            "has no page 99",
-        ),
-        (
-            "no doc",
-            get("/api/page?doc=nope&page=1"),
-            StatusCode::NOT_FOUND,
-            "no document",
-        ),
-        (
-            "page not a number",
-            get("/api/page?doc=nope&page=one"),
-            StatusCode::BAD_REQUEST,
-            "",
-        ),
-        (
-            "answer id",
-            get("/api/answers/abc"),
-            StatusCode::BAD_REQUEST,
-            "numbers",
-        ),
-        (
-            "no answer",
-            get("/api/answers/99999999"),
-            StatusCode::NOT_FOUND,
-            "no answer",
-        ),
-        (
-            "export format",
-            post("/api/export?format=pdf", &json!({})),
-            StatusCode::BAD_REQUEST,
-            "unknown format",
-        ),
-        (
-            "export not a record",
-            post("/api/export?format=csv", &json!({"question": "q"})),
-            StatusCode::UNPROCESSABLE_ENTITY,
-            "",
-        ),
-        (
-            "replay nothing",
-            post("/api/replay", &json!({})),
-            StatusCode::BAD_REQUEST,
-            "either text",
-        ),
-        (
-            "replay junk",
-            post("/api/replay", &json!({"text": "{\"a\": 1}"})),
-            StatusCode::BAD_REQUEST,
-            "not an answer record",
-        ),
-        (
-            "replay old schema",
-            post("/api/replay", &json!({"text": "{\"schema_version\": 99}"})),
-            StatusCode::BAD_REQUEST,
-            "schema version 99",
-        ),
-        (
-            "no route",
-            get("/api/nothing-here"),
-            StatusCode::NOT_FOUND,
-            "no such address",
-        ),
+        ("no question", post("/api/ask", &json!({})), StatusCode::UNPROCESSABLE_ENTITY, "question"),
+        ("empty question", post("/api/ask", &json!({"question": "  "})), StatusCode::BAD_REQUEST, "question is empty"),
+        ("long question", post("/api/ask", &json!({"question": long})), StatusCode::BAD_REQUEST, "the limit is 1000"),
+        ("k 0", post("/api/ask", &json!({"question": "q", "k": 0})), StatusCode::BAD_REQUEST, "k must be 1 to 50"),
+        ("k huge", post("/api/search", &json!({"query": "q", "k": 5000})), StatusCode::BAD_REQUEST, "k must be 1 to 50"),
+        ("retriever", post("/api/ask", &json!({"question": "q", "retriever": "magic"})), StatusCode::BAD_REQUEST, "unknown retriever"),
+        ("no embedder", post("/api/search", &json!({"query": "q", "retriever": "hybrid"})), StatusCode::BAD_REQUEST, "needs the embedding model"),
+        ("drafter", post("/api/ask", &json!({"question": "q", "drafter": "oracle"})), StatusCode::BAD_REQUEST, "not available"),
+        ("judge", post("/api/ask", &json!({"question": "q", "judge": "vibes"})), StatusCode::BAD_REQUEST, "unknown judge"),
+        ("bad date", post("/api/ask", &json!({"question": "q", "filters": {"from": "2021-13-01"}})), StatusCode::BAD_REQUEST, "filters.from"),
+        ("empty range", post("/api/ask", &json!({"question": "q", "filters": {"from": "2023-01-01", "to": "2022-01-01"}})), StatusCode::BAD_REQUEST, "date range is empty"),
+        ("unknown doc", post("/api/ask", &json!({"question": "q", "filters": {"docs": ["no-such-doc"]}})), StatusCode::BAD_REQUEST, "no document \"no-such-doc\""),
+        ("unknown field", post("/api/ask", &json!({"question": "q", "temperature": 2})), StatusCode::UNPROCESSABLE_ENTITY, "unknown field"),
+        ("not JSON", post_raw("/api/ask", "application/json", "{question:".into()), StatusCode::BAD_REQUEST, ""),
+        ("form post", post_raw("/api/ask", "application/x-www-form-urlencoded", "question=q".into()), StatusCode::UNSUPPORTED_MEDIA_TYPE, ""),
+        ("too big", post("/api/ask", &big), StatusCode::PAYLOAD_TOO_LARGE, "larger than this server accepts"),
+        ("no page", get("/api/page?doc=paha-web-2024-04-pier3-reopening&page=99"), StatusCode::NOT_FOUND, "has no page 99"),
+        ("no doc", get("/api/page?doc=nope&page=1"), StatusCode::NOT_FOUND, "no document"),
+        ("page not a number", get("/api/page?doc=nope&page=one"), StatusCode::BAD_REQUEST, ""),
+        ("answer id", get("/api/answers/abc"), StatusCode::BAD_REQUEST, "numbers"),
+        ("no answer", get("/api/answers/99999999"), StatusCode::NOT_FOUND, "no answer"),
+        ("export format", post("/api/export?format=pdf", &json!({})), StatusCode::BAD_REQUEST, "unknown format"),
+        ("export not a record", post("/api/export?format=csv", &json!({"question": "q"})), StatusCode::UNPROCESSABLE_ENTITY, ""),
+        ("replay nothing", post("/api/replay", &json!({})), StatusCode::BAD_REQUEST, "either text"),
+        ("replay junk", post("/api/replay", &json!({"text": "{\"a\": 1}"})), StatusCode::BAD_REQUEST, "not an answer record"),
+        ("replay old schema", post("/api/replay", &json!({"text": "{\"schema_version\": 99}"})), StatusCode::BAD_REQUEST, "schema version 99"),
+        ("no route", get("/api/nothing-here"), StatusCode::NOT_FOUND, "no such address"),
     ];
     for (name, req, status, needle) in cases {
         let r = send(&app, req).await;
@@ -774,6 +620,20 @@ fn binding_beyond_loopback_needs_a_long_token() {
         Err(ServeError::ShortToken(5))
     ));
     assert!(check_bind(lan, Some(TOKEN)).is_ok());
+    assert!(
+        check_bind(lan, Some("Zm9vYmFyYmF6cXV4K2/+AB==")).is_ok(),
+        "base64"
+    );
+    for bad in [
+        "sixteen chars & more",
+        "token#with-a-fragment",
+        "semi;colon-in-a-cookie",
+    ] {
+        assert!(
+            matches!(check_bind(lan, Some(bad)), Err(ServeError::TokenChars)),
+            "{bad}"
+        );
+    }
     for ok in ["127.0.0.1:8417", "[::1]:8417", "127.0.0.2:9000"] {
         assert!(check_bind(ok.parse().unwrap(), None).is_ok(), "{ok}");
     }
@@ -828,7 +688,7 @@ async fn hostile_markup_in_records_is_returned_as_text() {
     for m in ["<img src=x onerror=", "](javascript:", "<a href="] {
         assert!(text.contains(m), "{m}");
     }
-    assert_eq!(r.headers["content-type"], "application/json");
+    assert_eq!(r.content_type(), "application/json");
 }
 
 /// Nearest-rank percentile of sorted values.
