@@ -84,19 +84,29 @@ impl RepeatGuard {
     }
 
     /// How much of `text` can be shown: all of it, unless the unfinished
-    /// last line is so far the start of an earlier line.
+    /// last line may yet repeat an earlier one — its sentence is so far the
+    /// start of an earlier line's, or is an earlier line's sentence with its
+    /// citation still being written (which [`Self::repeated_line`] cuts
+    /// once the line ends, whatever it cites).
     fn safe_prefix(&self, text: &str) -> usize {
         let start = text.rfind('\n').map_or(0, |i| i + 1);
         let partial = text[start..].trim();
         if partial.is_empty() {
             return text.len();
         }
+        let (sentence, citing) = match partial.split_once(" [") {
+            Some((s, _)) => (s.trim(), true),
+            None => (partial, false),
+        };
         let earlier = Self::complete_lines(&text[..start]);
-        if earlier.iter().any(|(_, l)| l.starts_with(partial)) {
-            start
-        } else {
-            text.len()
-        }
+        let may_repeat = earlier.iter().any(|(_, l)| {
+            if citing {
+                *l == sentence
+            } else {
+                l.starts_with(sentence)
+            }
+        });
+        if may_repeat { start } else { text.len() }
     }
 }
 
@@ -328,5 +338,11 @@ mod tests {
         assert_eq!(g.safe_prefix("A one.\nB two.\nA o"), 14);
         assert_eq!(g.safe_prefix("A one.\nB two.\nA ot"), 18);
         assert_eq!(g.safe_prefix("A on"), 4);
+        // The same sentence citing another excerpt is held back while its
+        // citation is written, since the whole line will be cut (a CI run
+        // once streamed such a line that the record then did not keep).
+        assert_eq!(g.safe_prefix("A one. [1] \"x\"\nA one. [2] \"y"), 15);
+        assert_eq!(g.safe_prefix("A one. [1] \"x\"\nA one. ["), 15);
+        assert_eq!(g.safe_prefix("A one. [1] \"x\"\nA two. [2] \"y"), 28);
     }
 }
