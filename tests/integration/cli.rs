@@ -235,8 +235,11 @@ fn the_demo_command_uses_hybrid_when_the_model_is_present() {
         return;
     }
     let empty = tempfile::tempdir().unwrap();
+    // One work folder for both runs, as a reader who fetches the model after
+    // a first demo has it: the second run finds the release built and the
+    // documents unchanged, and adds the vectors hybrid retrieval needs.
+    let work = tempfile::tempdir().unwrap();
     let demo = |models: &std::path::Path| {
-        let work = tempfile::tempdir().unwrap();
         let out = Command::new(env!("CARGO_BIN_EXE_onrecord"))
             .args(["demo", "--json", "--workdir"])
             .arg(work.path())
@@ -267,6 +270,7 @@ fn the_demo_command_uses_hybrid_when_the_model_is_present() {
     }
     let (records, err) = demo(&onrecord::embed::models_dir());
     assert!(err.contains("Retrieval: hybrid"), "{err}");
+    assert!(err.contains(" 0 ingested, "), "documents read again: {err}");
     for r in &records {
         assert_eq!(r["config"]["retriever"], "hybrid");
         assert!(

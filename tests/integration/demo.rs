@@ -5,8 +5,6 @@
 
 use onrecord::answer::ask;
 use onrecord::draft::Extractive;
-use onrecord::ingest::{IngestConfig, ingest_paths};
-use onrecord::manifest::Manifest;
 use onrecord::retrieve::Index;
 use onrecord::types::Filters;
 use onrecord::verify::RulesJudge;
@@ -32,18 +30,16 @@ struct Question {
 #[test]
 fn demo_release_builds_ingests_and_answers() {
     let source = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("eval/demo");
+    // The shared build (`support::demo_workdir`, the same `demo::prepare`
+    // the `demo` command runs) and its first ingest report; a copy of its
+    // index, since the hybrid check below adds vectors to it.
+    let (_, report) = crate::support::demo_workdir();
     let work = tempfile::tempdir().unwrap();
-    let release = work.path().join("release");
-    let manifest = onrecord::demo::build(&source, &release).unwrap();
+    let idx = work.path().join("index");
+    crate::support::copy_dir(crate::support::demo_index(), &idx);
     let entries = onrecord::demo::load_entries(&source).unwrap();
     assert!(entries.len() >= 40, "at least 40 demo documents");
-    let cfg = IngestConfig {
-        manifest: Manifest::load(&manifest).unwrap(),
-        ..Default::default()
-    };
-    let idx = work.path().join("index");
-    let (report, diags) = ingest_paths(&idx, std::slice::from_ref(&release), &cfg).unwrap();
-    assert_eq!(report.failed, 0, "{diags:#?}");
+    assert_eq!(report.failed, 0);
     assert_eq!(report.ingested, entries.len());
     assert!(
         report.pages >= 150,
@@ -61,7 +57,7 @@ fn demo_release_builds_ingests_and_answers() {
         .collect();
     assert!(qs.len() >= 30);
     let bm25 = score(&Index::open(&idx).unwrap(), &qs);
-    eprintln!("demo, bm25: {}", bm25.describe());
+    crate::support::figure(&format!("demo, bm25: {}", bm25.describe()));
     assert!(bm25.unanswerable >= 5);
     assert!(
         bm25.rate() >= 0.70,
@@ -86,7 +82,7 @@ fn demo_release_builds_ingests_and_answers() {
     let index = Index::open_with(&idx, Some(e)).unwrap();
     assert_eq!(index.retriever(), onrecord::retrieve::RetrieverKind::Hybrid);
     let hybrid = score(&index, &qs);
-    eprintln!("demo, hybrid: {}", hybrid.describe());
+    crate::support::figure(&format!("demo, hybrid: {}", hybrid.describe()));
     assert!(
         hybrid.gold_cited >= bm25.gold_cited,
         "hybrid cites the gold page for {} questions, BM25 for {}",

@@ -5,7 +5,7 @@
 
 use crate::support::{schema_problems, slow_enabled, write};
 use serde_json::Value;
-use std::path::Path;
+use std::path::{Path, PathBuf};
 use std::process::{Command, Output};
 
 fn onrecord(args: &[&str], embedder: &str) -> Output {
@@ -16,6 +16,18 @@ fn onrecord(args: &[&str], embedder: &str) -> Output {
         .env_remove("RUST_LOG")
         .output()
         .expect("the binary runs")
+}
+
+/// One demo work folder for the demo-set runs here, used by one run at a
+/// time (the index takes one writer): the first run builds the release and
+/// ingests it through `eval run --workdir`, the next finds it up to date.
+fn demo_workdir() -> (std::sync::MutexGuard<'static, Option<PathBuf>>, PathBuf) {
+    static WORK: std::sync::Mutex<Option<PathBuf>> = std::sync::Mutex::new(None);
+    let mut guard = WORK.lock().unwrap_or_else(|e| e.into_inner());
+    let dir = guard
+        .get_or_insert_with(|| tempfile::tempdir().unwrap().keep().join("demo"))
+        .clone();
+    (guard, dir)
 }
 
 fn root() -> &'static Path {
@@ -93,7 +105,7 @@ fn the_demo_set_runs_side_by_side_and_reports() {
         text.replace("name = \"bm25-extractive\"", "name = \"same-again\""),
     );
     let report = tmp.path().join("report");
-    let work = tmp.path().join("demo");
+    let (_shared, work) = demo_workdir();
     let questions = root().join("eval/demo/questions.jsonl");
     let out = onrecord(
         &[
@@ -251,13 +263,14 @@ fn slow_the_bundled_demo_eval_runs_end_to_end() {
     let model = crate::support::model();
     let tmp = tempfile::tempdir().unwrap();
     let report = tmp.path().join("report");
+    let (_shared, work) = demo_workdir();
     let v = eval_json(
         &[
             root().join("eval/demo/questions.jsonl").to_str().unwrap(),
             "--report",
             report.to_str().unwrap(),
             "--workdir",
-            tmp.path().join("demo").to_str().unwrap(),
+            work.to_str().unwrap(),
         ],
         "auto",
     );
@@ -270,7 +283,7 @@ fn slow_the_bundled_demo_eval_runs_end_to_end() {
     );
     for c in configs {
         let h = &c["headline"];
-        eprintln!("demo eval, {}: {h}", c["name"]);
+        crate::support::figure(&format!("demo eval, {}: {h}", c["name"]));
         assert!(h["page_recall@k"].as_f64().unwrap() >= 0.75, "{h:#}");
         assert!(h["answer_contained"].as_f64().unwrap() >= 0.4, "{h:#}");
         assert!(h["abstain_recall"].as_f64().unwrap() > 0.0, "{h:#}");
@@ -320,7 +333,9 @@ fn a_squad_file_runs_through_its_adapter() {
             .all(|q| !q["answers"].as_array().unwrap().is_empty())
     );
     let h = &v["configs"][0]["headline"];
-    eprintln!("SQuAD article 1, 40 questions, bm25-extractive: {h}");
+    crate::support::figure(&format!(
+        "SQuAD article 1, 40 questions, bm25-extractive: {h}"
+    ));
     assert!(h["f1"].as_f64().unwrap() > 0.05, "{h:#}");
     assert!(h["answer_contained"].as_f64().unwrap() > 0.3, "{h:#}");
     assert!(h["page_recall@k"].as_f64().unwrap() > 0.5, "{h:#}");
@@ -358,7 +373,7 @@ fn slow_a_beir_folder_runs_through_its_adapter() {
         "off",
     );
     let h = &v["configs"][0]["headline"];
-    eprintln!("SciFact test, 60 queries, bm25: {h}");
+    crate::support::figure(&format!("SciFact test, 60 queries, bm25: {h}"));
     let ndcg = h["doc_ndcg@10"].as_f64().unwrap();
     assert!((0.5..=0.85).contains(&ndcg), "doc nDCG@10 {ndcg}");
     assert!(h.get("f1").is_none(), "no gold answers, no answer figures");

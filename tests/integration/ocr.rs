@@ -115,11 +115,11 @@ fn ocr_reads_the_demo_scans_within_a_character_error_rate() {
             conf.unwrap_or(0.0)
         );
     }
-    eprintln!(
+    crate::support::figure(&format!(
         "CER over {} scanned pages: {:.2}%",
         rows.len(),
         mean * 100.0
-    );
+    ));
     assert!(rows.len() >= 10, "the demo holds at least 10 scanned pages");
     // Tesseract reaches about 1-2% CER on clean 300 dpi print; these scans
     // are faint, speckled, skewed and stamped (common practice).
@@ -198,7 +198,9 @@ fn questions_answerable_only_from_scans_cite_their_gold_page() {
             None => misses.push(question.to_string()),
         }
     }
-    eprintln!("scan-only questions: {cited}/{asked} cite a gold page; missed: {misses:#?}");
+    crate::support::figure(&format!(
+        "scan-only questions: {cited}/{asked} cite a gold page; missed: {misses:?}"
+    ));
     assert!(
         asked >= 3,
         "at least 3 demo questions answerable only from scans, found {asked}"
@@ -255,7 +257,7 @@ fn quotes_from_a_degraded_scan_are_flagged() {
         .unwrap()
         .unwrap();
     let conf = page.confidence.unwrap();
-    eprintln!("degraded page: mean word confidence {conf:.1}");
+    crate::support::figure(&format!("degraded page: mean word confidence {conf:.1}"));
     // The speckled line holds words read with low confidence; the rest of
     // the page reads well.
     assert!(
@@ -560,12 +562,15 @@ fn an_answer_from_a_scan_replays_from_the_original_files() {
         return;
     }
     use std::process::Command;
-    let idx = demo_index();
-    let release = idx.parent().unwrap().join("release");
+    // A copy of the index: `ask` logs its answer into it.
+    let work = tempfile::tempdir().unwrap();
+    let idx = work.path().join("index");
+    support::copy_dir(demo_index(), &idx);
+    let release = demo_index().parent().unwrap().join("release");
     let run = |args: &[&str]| {
         Command::new(env!("CARGO_BIN_EXE_onrecord"))
             .args(args)
-            .env("ONRECORD_INDEX", idx)
+            .env("ONRECORD_INDEX", &idx)
             .env("ONRECORD_EMBEDDER", "off")
             .env_remove("RUST_LOG")
             .output()

@@ -38,10 +38,10 @@ fn retrieval_on_scifact_reaches_the_published_baselines() {
     )
     .unwrap();
     for x in &r.runs {
-        eprintln!(
+        crate::support::figure(&format!(
             "SciFact {}: nDCG@10 {:.4}, recall@100 {:.4}, MRR@10 {:.4} over {} queries; search p50 {:.2} ms",
             x.retriever, x.ndcg10, x.recall100, x.mrr10, x.queries, x.search_p50_ms
-        );
+        ));
         assert_eq!(x.queries, 300);
         assert_eq!(x.documents, 5183);
     }
@@ -61,7 +61,10 @@ fn retrieval_on_scifact_reaches_the_published_baselines() {
         return;
     }
     let v = r.vectors.as_ref().expect("vector figures with a model");
-    eprintln!("SciFact vectors: {}", serde_json::to_string(v).unwrap());
+    crate::support::figure(&format!(
+        "SciFact vectors: {}",
+        serde_json::to_string(v).unwrap()
+    ));
     let dense = by("dense").expect("dense runs with a model");
     let hybrid = by("hybrid").expect("hybrid runs with a model");
     assert!(
@@ -119,7 +122,7 @@ fn abstention_threshold_is_calibrated_on_squad() {
         tuned.threshold
     );
     let r = at_threshold(&report, default);
-    eprintln!("SQuAD articles 25-48 at {default:.2}: {r:?}");
+    crate::support::figure(&format!("SQuAD articles 25-48 at {default:.2}: {r:?}"));
     assert!(r.answered >= 0.85, "{r:?}");
     assert!(r.answered_with_gold >= 0.55, "{r:?}");
     assert!(r.abstained >= 0.70, "{r:?}");

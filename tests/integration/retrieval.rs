@@ -60,10 +60,10 @@ fn minilm_matches_the_reference_library() {
             "item {i}: batch and single differ"
         );
     }
-    eprintln!(
+    crate::support::figure(&format!(
         "MiniLM parity: worst cosine {worst:.6} over {} items",
         items.len()
-    );
+    ));
 }
 
 fn doc(id: &str, org: &str, date: &str, text: &str) -> MemDoc {

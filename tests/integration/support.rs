@@ -12,6 +12,25 @@ pub fn slow_enabled(name: &str) -> bool {
     on
 }
 
+/// Prints a measured figure and keeps it in `target/tmp/test-figures.txt`,
+/// one line per figure, so the figures of passing tests (whose output cargo
+/// captures) can be read after the run; `.ci/run` prints the file. The file
+/// is started afresh by the first figure of each run.
+pub fn figure(line: &str) {
+    use std::io::Write;
+    use std::sync::{Mutex, OnceLock};
+    static FILE: OnceLock<Mutex<Option<std::fs::File>>> = OnceLock::new();
+    eprintln!("{line}");
+    let file = FILE.get_or_init(|| {
+        let path = Path::new(env!("CARGO_TARGET_TMPDIR")).join("test-figures.txt");
+        Mutex::new(std::fs::File::create(&path).ok())
+    });
+    if let Some(f) = file.lock().unwrap_or_else(|e| e.into_inner()).as_mut() {
+        // One write per line, so lines from parallel tests never interleave.
+        let _ = f.write_all(format!("{}\n", line.replace('\n', " ")).as_bytes());
+    }
+}
+
 /// A folder under the shared open data, or None with a clear message when it
 /// is absent. Under CI=true an absent folder is a failure.
 pub fn shared_data(rel: &str) -> Option<PathBuf> {
@@ -212,24 +231,28 @@ pub fn llm_file() -> Option<PathBuf> {
 }
 
 /// The demo release rendered and ingested once per test run (BM25 only),
-/// in a folder that lives as long as the test binary.
-pub fn demo_index() -> &'static Path {
+/// with the ingest report of that first build: `<dir>/release` and
+/// `<dir>/index`, as `onrecord demo --workdir <dir>` lays them out. Nothing
+/// writes here after it is built: a test that logs answers or adds vectors
+/// works on a copy of the index (`copy_dir`). The index knows its files by
+/// their full path, so a copied release would be read again on ingest; a
+/// test that ingests or edits the release builds its own.
+pub fn demo_workdir() -> &'static (PathBuf, Report) {
     use std::sync::OnceLock;
-    static DIR: OnceLock<PathBuf> = OnceLock::new();
+    static DIR: OnceLock<(PathBuf, Report)> = OnceLock::new();
     DIR.get_or_init(|| {
         let source = Path::new(env!("CARGO_MANIFEST_DIR")).join("eval/demo");
         let work = tempfile::tempdir().unwrap().keep();
-        let release = work.join("release");
-        let manifest = onrecord::demo::build(&source, &release).unwrap();
-        let cfg = IngestConfig {
-            manifest: onrecord::manifest::Manifest::load(&manifest).unwrap(),
-            ..Default::default()
-        };
-        let idx = work.join("index");
-        let (report, diags) = ingest_paths(&idx, std::slice::from_ref(&release), &cfg).unwrap();
+        let (_, report, diags) = onrecord::demo::prepare(&source, &work, false).unwrap();
         assert_eq!(report.failed, 0, "{diags:#?}");
-        idx
+        (work, report)
     })
+}
+
+/// The shared demo index, for tests that only read it.
+pub fn demo_index() -> &'static Path {
+    static DIR: std::sync::OnceLock<PathBuf> = std::sync::OnceLock::new();
+    DIR.get_or_init(|| demo_workdir().0.join("index"))
 }
 
 /// A copy of the demo index for the web tests, which log answers into it
@@ -251,8 +274,10 @@ pub fn copy_dir(from: &Path, to: &Path) {
         let dst = to.join(e.path().strip_prefix(from).unwrap());
         if e.file_type().is_dir() {
             std::fs::create_dir_all(&dst).unwrap();
-        } else {
-            std::fs::copy(e.path(), &dst).unwrap();
+        } else if let Err(err) = std::fs::copy(e.path(), &dst) {
+            // A reader closing the index removes SQLite's -wal and -shm
+            // files; one that vanished while being copied was empty.
+            assert_eq!(err.kind(), std::io::ErrorKind::NotFound, "{err}");
         }
     }
 }

@@ -406,7 +406,7 @@ fn verifier_error_rates_on_open_data() {
         let j = kind.build();
         let r = onrecord::eval::pairs::evaluate(&pairs, j.as_ref());
         let s = onrecord::eval::pairs::evaluate(&sci, j.as_ref());
-        eprintln!(
+        crate::support::figure(&format!(
             "{}: SQuAD 25-48 pass-through {:.2}%, retention {:.2}%, balanced accuracy {:.4} ({} pairs); \
              SciFact dev balanced accuracy {:.4} (retention {:.2}%, pass-through {:.2}%)",
             j.name(),
@@ -417,7 +417,7 @@ fn verifier_error_rates_on_open_data() {
             s.balanced_accuracy,
             s.retention * 100.0,
             s.pass_through * 100.0
-        );
+        ));
         assert!(
             r.pass_through <= 0.03,
             "{}: pass-through {:.4}",

@@ -771,14 +771,14 @@ fn load_fifty_clients_over_loopback() {
     let all: Vec<(u16, f64)> = results.into_iter().flatten().collect();
     let mut ms: Vec<f64> = all.iter().map(|(_, t)| *t).collect();
     ms.sort_by(f64::total_cmp);
-    eprintln!(
+    crate::support::figure(&format!(
         "load: {CLIENTS} clients for {wall:.1} s: {} answers ({:.0}/s); p50 {:.1} ms, p99 {:.1} ms, max {:.1} ms",
         all.len(),
         all.len() as f64 / wall,
         percentile(&ms, 50.0),
         percentile(&ms, 99.0),
         ms.last().unwrap()
-    );
+    ));
     assert!(wall <= 60.0, "bounded: {wall:.1} s");
     let lost = all.iter().filter(|(s, _)| *s == 0).count();
     let server_errors = all.iter().filter(|(s, _)| *s >= 500).count();
