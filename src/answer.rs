@@ -21,8 +21,11 @@ use crate::draft::{DraftRequest, Drafter, Extractive, ModelDraft};
 use crate::error::Result;
 use crate::llm::{GenOptions, Generator};
 use crate::retrieve::{Index, Retrieved, RetrieverKind, SearchOptions};
-use crate::types::{ChunkId, DocId, Filters};
-use crate::verify::{Judge, Verdict, VerifiedSentence, verify};
+use crate::select::{Selection, Selector, Vectors};
+use crate::types::{ChunkId, Citation, DocId, Filters};
+use crate::verify::{
+    Draft, DraftCitation, DraftSentence, Judge, Verdict, VerifiedSentence, verify,
+};
 use serde::{Deserialize, Serialize};
 use std::collections::HashMap;
 
@@ -83,7 +86,44 @@ pub struct AnswerRecord {
     /// How long each stage took.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub timings: Option<Timings>,
+    /// How the selector scored the candidate sentences, and its decision.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub selection: Option<SelectionRecord>,
+    /// Sentences the records support that do not answer this question
+    /// (another year, a failed proposal, another numbered thing), each
+    /// with its reason. Never part of the answer.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub off_question: Vec<VerifiedSentence>,
+    /// When the answer is declined: the closest candidate sentences,
+    /// quoted with their pages. They are not answers.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub closest: Vec<ClosestSentence>,
     pub caution: String,
+}
+
+/// The selector's part in an answer.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct SelectionRecord {
+    /// `semantic-v1` (embedding cosines and words) or `lexical-v1` (words
+    /// only, when no embedding model is loaded).
+    pub model: String,
+    /// Candidate sentences scored.
+    pub candidates: usize,
+    /// Estimated probability that the best candidate not set aside answers.
+    pub answer_probability: f32,
+    /// The probability an answer needs.
+    pub threshold: f32,
+}
+
+/// A candidate sentence shown with a declined answer: the record's own
+/// words and page, and why it was not given as an answer.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct ClosestSentence {
+    pub text: String,
+    /// Estimated probability that it answers the question.
+    pub probability: f32,
+    pub why_not: String,
+    pub citations: Vec<Citation>,
 }
 
 /// Wall-clock milliseconds per stage of one answer. A model fallback's
@@ -92,6 +132,9 @@ pub struct AnswerRecord {
 pub struct Timings {
     /// Query rewriting (if any) and retrieval.
     pub retrieve_ms: f64,
+    /// Scoring the candidate sentences (with their vectors).
+    #[serde(default)]
+    pub select_ms: f64,
     pub draft_ms: f64,
     pub verify_ms: f64,
     pub total_ms: f64,
@@ -166,6 +209,8 @@ pub struct AskPlan<'a> {
     /// Ask this model for up to [`MAX_REWRITES`] extra search queries and fuse
     /// their results with the question's.
     pub rewrite: Option<&'a dyn Generator>,
+    /// Scores the candidate sentences (default: the built-in weights).
+    pub selector: Option<&'a Selector>,
 }
 
 /// Most extra queries `--rewrite` adds.
@@ -192,6 +237,7 @@ pub fn ask(
             judge,
             fallback: None,
             rewrite: None,
+            selector: None,
         },
     )
 }
@@ -222,7 +268,24 @@ pub fn gather(
     filters: &Filters,
     k: usize,
 ) -> Result<Vec<Retrieved>> {
-    let hits = index.search(question, filters, k * 3)?;
+    let qv = match index.retriever() {
+        RetrieverKind::Bm25 => None,
+        _ => Some(index.embed_query(question)?),
+    };
+    gather_embedded(index, question, qv.as_deref(), queries, filters, k)
+}
+
+/// As [`gather`], with the question's vector already made (`None` only
+/// when the index searches with BM25).
+pub fn gather_embedded(
+    index: &Index,
+    question: &str,
+    qv: Option<&[f32]>,
+    queries: &[String],
+    filters: &Filters,
+    k: usize,
+) -> Result<Vec<Retrieved>> {
+    let hits = index.search_embedded(question, qv, filters, k * 3, &index.options)?;
     let hits = if queries.is_empty() {
         hits
     } else {
@@ -281,13 +344,43 @@ pub fn ask_with(index: &Index, question: &str, plan: AskPlan<'_>) -> Result<Answ
         Some(m) => rewrite_queries(m, question)?,
         None => vec![],
     };
-    let retrieved = gather(index, question, &queries, plan.filters, plan.k)?;
+    // The question's vector serves dense retrieval and the selector alike.
+    let semantic = index.has_dense();
+    let qv = if semantic {
+        Some(index.embed_query(question)?)
+    } else {
+        None
+    };
+    let retrieval_qv = qv
+        .as_deref()
+        .filter(|_| index.retriever() != RetrieverKind::Bm25);
+    let retrieved = gather_embedded(
+        index,
+        question,
+        retrieval_qv,
+        &queries,
+        plan.filters,
+        plan.k,
+    )?;
     let query_terms = index.query_terms(question)?;
     timings.retrieve_ms = ms(started);
+    let t = std::time::Instant::now();
+    let vectors = match qv {
+        Some(q) => Some(selection_vectors(index, q, &retrieved)?),
+        None => None,
+    };
+    let selection = plan.selector.unwrap_or(&Selector::default()).select(
+        question,
+        &retrieved,
+        &query_terms,
+        vectors.as_ref(),
+    );
+    timings.select_ms = ms(t);
     let req = DraftRequest {
         question,
         retrieved: &retrieved,
         query_terms: &query_terms,
+        selection: Some(&selection),
     };
     let chunks: HashMap<ChunkId, _> = retrieved
         .iter()
@@ -307,11 +400,17 @@ pub fn ask_with(index: &Index, question: &str, plan: AskPlan<'_>) -> Result<Answ
         fallback: None,
         verdicts: vec![],
     });
+    // A model's supported sentence about another year, a failed proposal
+    // or another numbered thing is set aside, as the extractive drafter's
+    // candidates are.
+    let mut off_question = set_aside_off_question(question, &mut sentences);
     let supported = |v: &[VerifiedSentence]| v.iter().any(|s| s.verdict == Verdict::Supported);
     if let (Some(rec), Some(fb)) = (draft_record.as_mut(), plan.fallback)
         && !supported(&sentences)
     {
-        let why = if !sentences.is_empty() {
+        let why = if !off_question.is_empty() {
+            "the model's supported sentences do not answer the question"
+        } else if !sentences.is_empty() {
             "every sentence of the model's draft was struck by the verifier"
         } else if rec.model.said_no_answer {
             "the model found no answer in the excerpts"
@@ -323,23 +422,53 @@ pub fn ask_with(index: &Index, question: &str, plan: AskPlan<'_>) -> Result<Answ
             fb.name()
         ));
         rec.verdicts = std::mem::take(&mut sentences);
+        rec.verdicts.append(&mut off_question);
         let t = std::time::Instant::now();
         draft = fb.draft(&req)?;
         timings.draft_ms += ms(t);
         let t = std::time::Instant::now();
         sentences = verify(&draft, &chunks, plan.judge, &page_hash);
+        off_question = set_aside_off_question(question, &mut sentences);
         timings.verify_ms += ms(t);
         drafter_name = format!("{} (fallback from {})", fb.name(), drafter_name);
     }
+    // The drafter's own set-aside sentences are verified like any other:
+    // only a supported one is listed.
+    let t = std::time::Instant::now();
+    for (d, why) in std::mem::take(&mut draft.set_aside) {
+        let one = Draft {
+            sentences: vec![d],
+            ..Draft::default()
+        };
+        for mut v in verify(&one, &chunks, plan.judge, &page_hash) {
+            if v.verdict == Verdict::Supported {
+                v.reason = Some(why.clone());
+                off_question.push(v);
+            }
+        }
+    }
+    timings.verify_ms += ms(t);
     note_ocr(store, &mut sentences);
+    note_ocr(store, &mut off_question);
     if let Some(rec) = draft_record.as_mut() {
         note_ocr(store, &mut rec.verdicts);
     }
     let any_supported = supported(&sentences);
     let abstain_reason = match (&draft.abstain, any_supported) {
         (Some(r), _) => Some(r.clone()),
+        (None, false) if !off_question.is_empty() => Some(
+            "the supported sentences found do not answer this question (see those set aside)"
+                .into(),
+        ),
         (None, false) => Some("every drafted sentence was struck by the verifier".into()),
         (None, true) => None,
+    };
+    let closest = if any_supported {
+        Vec::new()
+    } else {
+        closest_sentences(
+            &selection, &retrieved, &chunks, plan.judge, &page_hash, store,
+        )
     };
     Ok(AnswerRecord {
         schema_version: ANSWER_SCHEMA_VERSION,
@@ -348,7 +477,7 @@ pub fn ask_with(index: &Index, question: &str, plan: AskPlan<'_>) -> Result<Answ
         question: question.into(),
         config: AskConfig {
             retriever: index.retriever().name().into(),
-            embedder: (index.retriever() != crate::retrieve::RetrieverKind::Bm25)
+            embedder: (index.retriever() != crate::retrieve::RetrieverKind::Bm25 || semantic)
                 .then(|| index.embedder.as_ref().map(|e| e.id().to_owned()))
                 .flatten(),
             k: plan.k,
@@ -376,11 +505,155 @@ pub fn ask_with(index: &Index, question: &str, plan: AskPlan<'_>) -> Result<Answ
         draft: draft_record,
         queries,
         sentences,
+        selection: Some(SelectionRecord {
+            model: selection.model.clone(),
+            candidates: selection.candidates.len(),
+            answer_probability: selection.answer_probability(),
+            threshold: selection.threshold,
+        }),
+        off_question,
+        closest,
         timings: Some(Timings {
             total_ms: ms(started),
             ..timings
         }),
         caution: CAUTION.into(),
+    })
+}
+
+/// Most candidate sentences shown with a declined answer.
+pub const MAX_CLOSEST: usize = 3;
+
+/// Moves supported sentences that do not answer `question` out of
+/// `sentences`, each with the relevance check's reason.
+fn set_aside_off_question(
+    question: &str,
+    sentences: &mut Vec<VerifiedSentence>,
+) -> Vec<VerifiedSentence> {
+    let mut out = Vec::new();
+    sentences.retain(|s| {
+        if s.verdict != Verdict::Supported {
+            return true;
+        }
+        let date = s.citations.first().and_then(|c| c.date.as_deref());
+        match crate::select::relevance::check(
+            question,
+            &s.text,
+            crate::select::relevance::Context { date, after: None },
+        ) {
+            Some(why) => {
+                let mut s = s.clone();
+                s.reason = Some(why);
+                out.push(s);
+                false
+            }
+            None => true,
+        }
+    });
+    out
+}
+
+/// The closest candidates of a declined answer, located on their pages by
+/// the verifier (a candidate it would strike is not shown).
+fn closest_sentences(
+    selection: &Selection,
+    retrieved: &[Retrieved],
+    chunks: &HashMap<ChunkId, crate::store::StoredChunk>,
+    judge: &dyn Judge,
+    page_hash: &dyn Fn(&DocId, u32) -> Option<String>,
+    store: &crate::store::Store,
+) -> Vec<ClosestSentence> {
+    let mut out = Vec::new();
+    // Sentences set aside are listed with their reasons already.
+    for c in selection
+        .candidates
+        .iter()
+        .filter(|c| c.off_question.is_none())
+    {
+        if out.len() == MAX_CLOSEST {
+            break;
+        }
+        let one = Draft {
+            sentences: vec![DraftSentence {
+                text: c.text.clone(),
+                citations: vec![DraftCitation {
+                    chunk_id: retrieved[c.chunk_idx].chunk.id,
+                    quote: c.raw.clone(),
+                }],
+            }],
+            ..Draft::default()
+        };
+        let mut v = verify(&one, chunks, judge, page_hash);
+        note_ocr(store, &mut v);
+        let Some(v) = v.pop().filter(|v| v.verdict == Verdict::Supported) else {
+            continue;
+        };
+        let why_not = if c.probability < selection.threshold {
+            format!(
+                "{:.0}% likely to answer; an answer needs {:.0}%",
+                c.probability * 100.0,
+                selection.threshold * 100.0
+            )
+        } else {
+            "likely, but not drafted into the answer".into()
+        };
+        out.push(ClosestSentence {
+            text: c.text.clone(),
+            probability: c.probability,
+            why_not,
+            citations: v.citations,
+        });
+    }
+    out
+}
+
+/// The vectors the semantic selector reads for these chunks: the stored
+/// vectors of their candidate sentences, titles and chunks. Any sentence
+/// or title the store lacks (an index built before sentence vectors) is
+/// embedded now; the store is not changed.
+pub fn selection_vectors(
+    index: &Index,
+    question: Vec<f32>,
+    retrieved: &[Retrieved],
+) -> Result<Vectors> {
+    let Some(e) = index.embedder.as_ref() else {
+        return Err(crate::Error::Invalid(
+            "the selector's vectors need an embedding model".into(),
+        ));
+    };
+    let model = e.id().to_owned();
+    let inputs = crate::select::inputs_of(
+        retrieved
+            .iter()
+            .map(|r| (r.chunk.title.as_str(), r.chunk.text.as_str())),
+    );
+    let keys: Vec<String> = inputs
+        .iter()
+        .map(|t| crate::store::embedding_key(t))
+        .collect();
+    let mut texts = index.store.embeddings_by_key(&model, &keys)?;
+    let missing: Vec<&str> = inputs
+        .iter()
+        .zip(&keys)
+        .filter(|(_, k)| !texts.contains_key(*k))
+        .map(|(t, _)| t.as_str())
+        .collect();
+    if !missing.is_empty() {
+        tracing::info!(
+            "{} sentence vectors not stored; embedding them now",
+            missing.len()
+        );
+        for (t, v) in missing.iter().zip(e.embed(&missing)?) {
+            texts.insert(crate::store::embedding_key(t), v);
+        }
+    }
+    let ids: Vec<ChunkId> = retrieved.iter().map(|r| r.chunk.id).collect();
+    let passages = index.store.chunk_vectors(&model, &ids)?;
+    Ok(Vectors {
+        model,
+        question,
+        texts,
+        passages,
     })
 }
 
@@ -476,7 +749,25 @@ pub fn render_text(a: &AnswerRecord) -> String {
                 .as_deref()
                 .unwrap_or("the retrieved records do not answer this question")
         );
-        if !a.retrieved.is_empty() {
+        if !a.closest.is_empty() {
+            let _ = writeln!(
+                out,
+                "\nClosest sentences in the records (not answers; check them yourself):"
+            );
+            for c in &a.closest {
+                let _ = writeln!(out, "  - \u{201C}{}\u{201D}", c.text);
+                if let Some(cit) = c.citations.first() {
+                    let _ = writeln!(
+                        out,
+                        "      {} ({}, {}): {}",
+                        cit.title,
+                        cit.doc_id,
+                        pages_label(cit),
+                        c.why_not
+                    );
+                }
+            }
+        } else if !a.retrieved.is_empty() {
             let _ = writeln!(out, "\nClosest records (not quoted, check them yourself):");
             let mut seen = Vec::new();
             for r in a.retrieved.iter() {
@@ -505,10 +796,7 @@ pub fn render_text(a: &AnswerRecord) -> String {
             if let Some(d) = &c.date {
                 head.push_str(&format!(", {d}"));
             }
-            let pages = match c.end_page {
-                Some(e) => format!("pp. {}-{e}", c.page),
-                None => format!("p. {}", c.page),
-            };
+            let pages = pages_label(c);
             let _ = writeln!(out, "  [{}] {head}, {pages} ({})", i + 1, c.doc_id);
             match &c.quoted_as {
                 Some(q) => {
@@ -550,6 +838,30 @@ pub fn render_text(a: &AnswerRecord) -> String {
             }
         }
     }
+    if !a.off_question.is_empty() {
+        let _ = writeln!(
+            out,
+            "\nSupported by the records, but not an answer to this question ({})",
+            a.off_question.len()
+        );
+        for s in &a.off_question {
+            let _ = writeln!(out, "  ~ \u{201C}{}\u{201D}", s.text);
+            if let Some(cit) = s.citations.first() {
+                let _ = writeln!(
+                    out,
+                    "      {} ({}, {})",
+                    cit.title,
+                    cit.doc_id,
+                    pages_label(cit)
+                );
+            }
+            let _ = writeln!(
+                out,
+                "      why: {}",
+                s.reason.as_deref().unwrap_or("not about what was asked")
+            );
+        }
+    }
     let mut struck: Vec<&VerifiedSentence> = a.struck().collect();
     if let Some(d) = &a.draft {
         struck.extend(d.verdicts.iter().filter(|s| s.verdict == Verdict::Struck));
@@ -567,6 +879,14 @@ pub fn render_text(a: &AnswerRecord) -> String {
     }
     let _ = writeln!(out, "\n{}", wrap(&format!("Caution: {CAUTION}"), 78));
     out
+}
+
+/// "p. 3" or "pp. 3-4" for a citation.
+fn pages_label(c: &Citation) -> String {
+    match c.end_page {
+        Some(e) if e != c.page => format!("pp. {}-{e}", c.page),
+        _ => format!("p. {}", c.page),
+    }
 }
 
 /// Footnote markers for a sentence's citations, numbering new sources in order.

@@ -531,9 +531,10 @@ enum Command {
         /// Most sentences in the answer.
         #[arg(long, default_value_t = 3)]
         max_sentences: usize,
-        /// Abstain unless a sentence scores at least this (0-1).
-        #[arg(long, default_value_t = ExtractiveConfig::default().min_score)]
-        min_score: f32,
+        /// Answer only with sentences at least this likely to answer the
+        /// question (0-1). [default: the selector's calibrated threshold]
+        #[arg(long, value_name = "P")]
+        min_score: Option<f32>,
         /// Which judge decides whether a quote supports a sentence: rules
         /// (explicit checks on dates, amounts, names, negation, quantities,
         /// swapped words and content-word coverage) or learned (a classifier
@@ -752,6 +753,40 @@ enum EvalCommand {
         after_help = "Examples:\n  onrecord eval run eval/demo/questions.jsonl\n  onrecord eval run my-questions.jsonl --index ./release-index --config a.toml --config b.toml\n  onrecord eval run ../shared/data/squad-v1.1/dev-v1.1.json --articles 1-2 --limit 100\n  onrecord eval run ../shared/data/scifact --limit 100   (BEIR layout: retrieval only)"
     )]
     Run(EvalRunArgs),
+    /// Answer-sentence selection and answer triggering on WikiQA (and,
+    /// optionally, SQuAD v1.1 paragraphs).
+    ///
+    /// Each question's candidate sentences are ranked by the selector:
+    /// MAP and MRR over the questions that have an answering sentence;
+    /// answer triggering (answer only when the best sentence clears the
+    /// threshold) as precision, recall and F1 over all questions, as Yang,
+    /// Yih and Meek (2015) define them. Report on `--split test`; the
+    /// weights were tuned on train and dev.
+    #[command(
+        after_help = "Examples:\n  onrecord eval answers --wikiqa ../shared/data/wikiqa --split test --json\n  onrecord eval answers --wikiqa ../shared/data/wikiqa --squad ../shared/data/squad-v1.1/dev-v1.1.json --articles 25-48"
+    )]
+    Answers {
+        /// WikiQA folder holding WikiQA-{train,dev,test}.tsv.
+        #[arg(long, value_name = "DIR")]
+        wikiqa: PathBuf,
+        #[arg(long, default_value = "test", value_parser = ["train", "dev", "test"])]
+        split: String,
+        /// Also score SQuAD v1.1 paragraphs (the sentence holding the gold
+        /// answer against the paragraph's others).
+        #[arg(long, value_name = "FILE")]
+        squad: Option<PathBuf>,
+        /// SQuAD articles, FIRST-LAST counting from 1 (report on 25-48).
+        #[arg(long, value_name = "A-B", default_value = "25-48", value_parser = parse_articles)]
+        articles: std::ops::RangeInclusive<usize>,
+        /// Selector weights to use instead of the built-in ones.
+        #[arg(long, value_name = "FILE")]
+        weights: Option<PathBuf>,
+        /// Keep the embeddings in this file, so a second run embeds nothing.
+        #[arg(long, value_name = "FILE")]
+        cache: Option<PathBuf>,
+        #[arg(long)]
+        json: bool,
+    },
     /// Retrieval quality on a BEIR-layout collection: nDCG@10, recall@100, MRR@10.
     Retrieval {
         /// Folder with corpus.jsonl, queries.jsonl and qrels/<split>.tsv.
@@ -880,6 +915,38 @@ enum TrainCommand {
             short,
             value_name = "FILE",
             default_value = "src/verify/learned-judge.json"
+        )]
+        out: PathBuf,
+        /// Print the weights file as JSON.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Rebuild the answer selector's weights from open data: WikiQA train
+    /// and dev (real search-engine questions) and SQuAD v1.1 articles 1-24.
+    /// Fits a words-and-meaning model (needs the embedding model) and a
+    /// words-only one, calibrates each on WikiQA's answer triggering and
+    /// picks the threshold with the best F1 there. Deterministic; the
+    /// built-in weights are this command's output at its defaults.
+    Selector {
+        /// WikiQA folder (default: wikiqa in the shared data folder).
+        #[arg(long, value_name = "DIR")]
+        wikiqa: Option<PathBuf>,
+        /// SQuAD v1.1 file (default: dev-v1.1.json in the shared data folder).
+        #[arg(long, value_name = "FILE")]
+        squad: Option<PathBuf>,
+        /// Keep the embeddings in this file, so a second run embeds nothing.
+        #[arg(long, value_name = "FILE")]
+        cache: Option<PathBuf>,
+        /// Train on WikiQA train only and print the figures on dev, to try
+        /// a change before training on both.
+        #[arg(long)]
+        hold_out_dev: bool,
+        /// Where to write the weights.
+        #[arg(
+            long,
+            short,
+            value_name = "FILE",
+            default_value = "src/select/selector.json"
         )]
         out: PathBuf,
         /// Print the weights file as JSON.
@@ -1182,6 +1249,31 @@ pub fn run() -> Result<ExitCode> {
             out,
             json,
         }) => cmd_train_judge(squad, scifact, seed, max_pass_through, &out, json),
+        Command::Train(TrainCommand::Selector {
+            wikiqa,
+            squad,
+            cache,
+            hold_out_dev,
+            out,
+            json,
+        }) => cmd_train_selector(wikiqa, squad, cache, hold_out_dev, &choice, &out, json),
+        Command::Eval(EvalCommand::Answers {
+            wikiqa,
+            split,
+            squad,
+            articles,
+            weights,
+            cache,
+            json,
+        }) => cmd_eval_answers(
+            &wikiqa,
+            &split,
+            squad.as_deref().map(|f| (f, articles)),
+            weights.as_deref(),
+            cache.as_deref(),
+            &choice,
+            json,
+        ),
         Command::Eval(EvalCommand::Retrieval {
             beir,
             split,
@@ -1495,10 +1587,7 @@ fn cmd_train_judge(
         "max_pass_through": (f64::from(max_pass_through) * 1e4).round() / 1e4,
     });
     let w = train_judge(&pairs, max_pass_through, trained_on);
-    let text = serde_json::to_string_pretty(&w)? + "\n";
-    let tmp = out.with_extension("json.tmp");
-    std::fs::write(&tmp, text).with_context(|| format!("cannot write {}", tmp.display()))?;
-    std::fs::rename(&tmp, out).with_context(|| format!("cannot write {}", out.display()))?;
+    write_weights(&w, out)?;
     if json {
         print_json(&w)?;
     } else {
@@ -1515,6 +1604,246 @@ fn cmd_train_judge(
     Ok(ExitCode::SUCCESS)
 }
 
+/// The embedding model for open-data selection work, wrapped in a cache
+/// file when one is named.
+fn selection_embedder(choice: &EmbedderChoice, what: &str) -> Result<Option<Arc<dyn Embedder>>> {
+    let r = embed::resolve(choice)?;
+    if r.embedder.is_none()
+        && let Some(n) = &r.note
+    {
+        eprintln!("{n}");
+        eprintln!("{what}");
+    }
+    Ok(r.embedder)
+}
+
+fn cmd_train_selector(
+    wikiqa: Option<PathBuf>,
+    squad: Option<PathBuf>,
+    cache: Option<PathBuf>,
+    hold_out_dev: bool,
+    choice: &EmbedderChoice,
+    out: &std::path::Path,
+    json: bool,
+) -> Result<ExitCode> {
+    use onrecord::eval::selection::{
+        Item, SQUAD_CAP, embed_items, read_wikiqa, squad_retrieval, train,
+    };
+    let data = onrecord::shared_data_dir();
+    let wikiqa = wikiqa.unwrap_or_else(|| data.join("wikiqa"));
+    let squad = squad.unwrap_or_else(|| data.join("squad-v1.1/dev-v1.1.json"));
+    let Some(model) = selection_embedder(
+        choice,
+        "`train selector` fits the words-and-meaning model too, so it needs the embedding model",
+    )?
+    else {
+        bail!("no embedding model: run eval/models/fetch, or pass --embedder DIR");
+    };
+    let model: Arc<dyn Embedder> = match &cache {
+        Some(c) => Arc::new(onrecord::embed::cache::CachedEmbedder::open(model, c)?),
+        None => model,
+    };
+    let splits: &[&str] = if hold_out_dev {
+        &["train"]
+    } else {
+        &["train", "dev"]
+    };
+    let mut tuning: Vec<Item> = Vec::new();
+    for split in splits {
+        tuning.extend(read_wikiqa(&wikiqa.join(format!("WikiQA-{split}.tsv")))?);
+    }
+    let dev = if hold_out_dev {
+        read_wikiqa(&wikiqa.join("WikiQA-dev.tsv"))?
+    } else {
+        Vec::new()
+    };
+    let progress = !json && std::io::stderr().is_terminal();
+    let all: Vec<Item> = tuning.iter().chain(&dev).cloned().collect();
+    let vectors = embed_items(&all, model.as_ref(), progress)?;
+    // SQuAD articles 1-24 asked as answering asks: hybrid for the
+    // words-and-meaning model, BM25 for the words-only one.
+    let (w1, w2) = (tempfile::tempdir()?, tempfile::tempdir()?);
+    let squad_semantic = squad_retrieval(
+        &squad,
+        1..=24,
+        SQUAD_CAP,
+        Some(model.clone()),
+        w1.path(),
+        progress,
+    )?;
+    let squad_lexical = squad_retrieval(&squad, 1..=24, SQUAD_CAP, None, w2.path(), progress)?;
+    let trained_on = serde_json::json!({
+        "wikiqa": {"splits": splits, "questions": tuning.len(),
+                   "candidates": tuning.iter().map(|i| i.sentences.len()).sum::<usize>()},
+        "squad": {"file": squad.file_name().map(|f| f.to_string_lossy().into_owned()),
+                  "articles": "1-24 (odd ones ingested, even ones left out)",
+                  "questions": squad_semantic.len(), "cap_per_kind": SQUAD_CAP},
+        "embedder": model.id(),
+        "trigger": "unweighted logistic regression on each question's best-scored candidate; threshold: best mean answer-triggering F1 over WikiQA and SQuAD",
+    });
+    let w = train(
+        &tuning,
+        &squad_semantic,
+        &squad_lexical,
+        &vectors,
+        trained_on,
+    );
+    if hold_out_dev {
+        use onrecord::eval::selection::{evaluate, item_rows};
+        for m in [&w.semantic, &w.lexical] {
+            let f = evaluate(&dev, &item_rows(&dev, m.set(), Some(&vectors)), m);
+            eprintln!(
+                "held-out WikiQA dev, {}: MAP {:.3} MRR {:.3} triggering P {:.3} R {:.3} F1 {:.3}",
+                m.name, f.map, f.mrr, f.trigger_precision, f.trigger_recall, f.trigger_f1
+            );
+        }
+    }
+    write_weights(&w, out)?;
+    if json {
+        print_json(&w)?;
+    } else {
+        println!(
+            "Answer selector trained on {} WikiQA and {} SQuAD questions; written to {}",
+            tuning.len(),
+            squad_semantic.len(),
+            out.display()
+        );
+        for m in [&w.semantic, &w.lexical] {
+            println!(
+                "{} (threshold {:.3}; tuning figures {})",
+                m.name, m.threshold, m.figures
+            );
+            for (f, v) in m.features.iter().zip(&m.weights) {
+                println!("  {f:<14} {v:>8.3}");
+            }
+        }
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+fn cmd_eval_answers(
+    wikiqa: &std::path::Path,
+    split: &str,
+    squad: Option<(&std::path::Path, std::ops::RangeInclusive<usize>)>,
+    weights: Option<&std::path::Path>,
+    cache: Option<&std::path::Path>,
+    choice: &EmbedderChoice,
+    json: bool,
+) -> Result<ExitCode> {
+    use onrecord::eval::selection::{embed_items, evaluate, item_rows, read_wikiqa, squad_items};
+    use onrecord::select::{FeatureSet, SelectorWeights};
+    let w = match weights {
+        Some(f) => SelectorWeights::from_file(f)?,
+        None => SelectorWeights::bundled(),
+    };
+    let model = selection_embedder(choice, "only the words-only selector is scored")?;
+    let items = read_wikiqa(&wikiqa.join(format!("WikiQA-{split}.tsv")))?;
+    let squad_set = match &squad {
+        Some((f, a)) => squad_items(f, a.clone())?,
+        None => Vec::new(),
+    };
+    let progress = !json && std::io::stderr().is_terminal();
+    let all: Vec<_> = items.iter().chain(&squad_set).cloned().collect();
+    let vectors = match (&model, cache) {
+        (Some(m), Some(c)) => {
+            let cached = onrecord::embed::cache::CachedEmbedder::open(m.clone(), c)?;
+            Some(embed_items(&all, &cached, progress)?)
+        }
+        (Some(m), None) => Some(embed_items(&all, m.as_ref(), progress)?),
+        (None, _) => None,
+    };
+    let sets: Vec<FeatureSet> = match vectors {
+        Some(_) => vec![FeatureSet::Semantic, FeatureSet::Lexical],
+        None => vec![FeatureSet::Lexical],
+    };
+    let mut models = Vec::new();
+    for set in &sets {
+        let m = w.model(*set);
+        let f = evaluate(&items, &item_rows(&items, *set, vectors.as_ref()), m);
+        let sq = (!squad_set.is_empty()).then(|| {
+            evaluate(
+                &squad_set,
+                &item_rows(&squad_set, *set, vectors.as_ref()),
+                m,
+            )
+        });
+        models.push((f, sq));
+    }
+    let (first, first_squad) = &models[0];
+    let mut v = serde_json::to_value(first)?;
+    if let Some(o) = v.as_object_mut() {
+        o.insert("dataset".into(), "wikiqa".into());
+        o.insert("split".into(), split.into());
+        if let Some(sq) = first_squad {
+            o.insert(
+                "squad".into(),
+                serde_json::json!({"articles": squad.as_ref().map(|(_, a)| format!("{}-{}", a.start(), a.end())),
+                                   "questions": sq.questions, "map": sq.map, "mrr": sq.mrr}),
+            );
+        }
+        if let Some((lex, lex_squad)) = models.get(1) {
+            let mut l = serde_json::to_value(lex)?;
+            if let (Some(lo), Some(sq)) = (l.as_object_mut(), lex_squad) {
+                lo.insert(
+                    "squad".into(),
+                    serde_json::json!({"map": sq.map, "mrr": sq.mrr}),
+                );
+            }
+            o.insert("words_only".into(), l);
+        }
+        o.insert(
+            "published".into(),
+            serde_json::json!({"source": "Yang, Yih and Meek 2015 (WikiQA), test split",
+                               "cnn_cnt_map": 0.652, "cnn_cnt_mrr": 0.665, "best_trigger_f1": 0.322}),
+        );
+    }
+    if json {
+        print_json(&v)?;
+    } else {
+        let mut out = std::io::stdout().lock();
+        writeln!(
+            out,
+            "WikiQA {split}: {} questions, {} with an answering sentence",
+            first.questions, first.with_answer
+        )?;
+        for (f, sq) in &models {
+            writeln!(
+                out,
+                "  {:<12} MAP {:.3}  MRR {:.3}  triggering P {:.3} R {:.3} F1 {:.3} (threshold {:.3})",
+                f.model,
+                f.map,
+                f.mrr,
+                f.trigger_precision,
+                f.trigger_recall,
+                f.trigger_f1,
+                f.threshold
+            )?;
+            if let Some(sq) = sq {
+                writeln!(
+                    out,
+                    "  {:<12} SQuAD {} questions: MAP {:.3}  MRR {:.3}",
+                    "", sq.questions, sq.map, sq.mrr
+                )?;
+            }
+        }
+        writeln!(
+            out,
+            "Published (Yang et al. 2015, test): CNN-Cnt MAP 0.652, MRR 0.665; best triggering F1 about 0.32"
+        )?;
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+/// Write a weights file through a temporary file, so a failed write never
+/// leaves half a file.
+fn write_weights(w: &impl serde::Serialize, out: &std::path::Path) -> Result<()> {
+    let text = serde_json::to_string_pretty(w)? + "\n";
+    let tmp = out.with_extension("json.tmp");
+    std::fs::write(&tmp, text).with_context(|| format!("cannot write {}", tmp.display()))?;
+    std::fs::rename(&tmp, out).with_context(|| format!("cannot write {}", out.display()))?;
+    Ok(())
+}
+
 fn cmd_eval_abstention(squad: &std::path::Path, cap: usize, json: bool) -> Result<ExitCode> {
     use onrecord::eval::squad::{at_threshold, best_threshold, score_range, sweep};
     let tune_dir = tempfile::tempdir()?;
@@ -1522,7 +1851,10 @@ fn cmd_eval_abstention(squad: &std::path::Path, cap: usize, json: bool) -> Resul
     let tune = score_range(squad, 1..=24, cap, tune_dir.path())?;
     let report = score_range(squad, 25..=48, cap, report_dir.path())?;
     let best = best_threshold(&tune);
-    let default = ExtractiveConfig::default().min_score;
+    let default = onrecord::select::Selector::default()
+        .weights
+        .lexical
+        .threshold;
     let sweep = sweep(&tune);
     let at_default = at_threshold(&report, default);
     if json {
@@ -1835,6 +2167,7 @@ fn ask_with_model(
             judge,
             fallback: Some(&extractive),
             rewrite: args.rewrite.then_some(model.as_ref()),
+            selector: None,
         },
     )?;
     if show && a.draft.is_some() {

@@ -17,6 +17,7 @@ use crate::chunk::Chunk;
 use crate::error::{Error, Result};
 use crate::types::{ChunkId, ChunkSpan, DocId, DocMeta, Filters};
 use rusqlite::{Connection, OptionalExtension, params};
+use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 
 /// Format version of the store. Bump on any incompatible schema change.
@@ -802,6 +803,17 @@ impl Store {
     /// Store vectors for `model`, all in one transaction. A key already
     /// stored keeps its vector.
     pub fn put_embeddings(&mut self, model: &str, items: &[(String, Vec<f32>)]) -> Result<()> {
+        self.put_embeddings_marked(model, items, None)
+    }
+
+    /// Store vectors for `model` and, when given, a `meta` key and value,
+    /// all in one transaction.
+    fn put_embeddings_marked(
+        &mut self,
+        model: &str,
+        items: &[(String, Vec<f32>)],
+        mark: Option<(String, String)>,
+    ) -> Result<()> {
         let path = self.path.clone();
         let e = |e: rusqlite::Error| Error::store(&path, e);
         let tx = self.conn.transaction().map_err(e)?;
@@ -813,8 +825,138 @@ impl Store {
                 ins.execute(params![model, key, vector_to_blob(v)])
                     .map_err(e)?;
             }
+            if let Some((k, v)) = mark {
+                tx.execute(
+                    "INSERT INTO meta(key, value) VALUES (?1, ?2)
+                     ON CONFLICT(key) DO UPDATE SET value = excluded.value",
+                    params![k, v],
+                )
+                .map_err(e)?;
+            }
         }
         tx.commit().map_err(e)
+    }
+
+    /// Stored vectors for `model` by embedding key; keys with none are absent.
+    pub fn embeddings_by_key(
+        &self,
+        model: &str,
+        keys: &[String],
+    ) -> Result<HashMap<String, Vec<f32>>> {
+        let mut stmt = self
+            .conn
+            .prepare_cached("SELECT vector FROM embeddings WHERE model = ?1 AND key = ?2")
+            .map_err(|e| self.err(e))?;
+        let mut out = HashMap::new();
+        for k in keys {
+            if out.contains_key(k) {
+                continue;
+            }
+            let v: Option<Vec<u8>> = stmt
+                .query_row(params![model, k], |r| r.get(0))
+                .optional()
+                .map_err(|e| self.err(e))?;
+            if let Some(b) = v {
+                out.insert(k.clone(), blob_to_vector(&b));
+            }
+        }
+        Ok(out)
+    }
+
+    /// Which of `keys` have no vector for `model`.
+    pub fn missing_embeddings(&self, model: &str, keys: &[String]) -> Result<Vec<String>> {
+        let mut stmt = self
+            .conn
+            .prepare_cached("SELECT 1 FROM embeddings WHERE model = ?1 AND key = ?2")
+            .map_err(|e| self.err(e))?;
+        let mut out = Vec::new();
+        for k in keys {
+            let found = stmt.exists(params![model, k]).map_err(|e| self.err(e))?;
+            if !found {
+                out.push(k.clone());
+            }
+        }
+        Ok(out)
+    }
+
+    /// The stored chunk vectors for `model` of these chunks.
+    pub fn chunk_vectors(
+        &self,
+        model: &str,
+        ids: &[ChunkId],
+    ) -> Result<HashMap<ChunkId, Vec<f32>>> {
+        let mut stmt = self
+            .conn
+            .prepare_cached(
+                "SELECT e.vector FROM chunks c JOIN embeddings e
+                     ON e.model = ?1 AND e.key = c.embed_key WHERE c.id = ?2",
+            )
+            .map_err(|e| self.err(e))?;
+        let mut out = HashMap::new();
+        for id in ids {
+            let v: Option<Vec<u8>> = stmt
+                .query_row(params![model, id.0 as i64], |r| r.get(0))
+                .optional()
+                .map_err(|e| self.err(e))?;
+            if let Some(b) = v {
+                out.insert(*id, blob_to_vector(&b));
+            }
+        }
+        Ok(out)
+    }
+
+    /// The highest chunk id whose candidate sentences have vectors for
+    /// `model` (0 when none): sentence vectors are added in chunk order.
+    pub fn sentences_embedded_through(&self, model: &str) -> Result<ChunkId> {
+        let v: Option<String> = self
+            .conn
+            .query_row(
+                "SELECT value FROM meta WHERE key = ?1",
+                params![format!("sentences_embedded:{model}")],
+                |r| r.get(0),
+            )
+            .optional()
+            .map_err(|e| self.err(e))?;
+        Ok(ChunkId(v.and_then(|v| v.parse().ok()).unwrap_or(0)))
+    }
+
+    /// Store sentence and title vectors for `model` and record that every
+    /// chunk up to `through` has them, in one transaction.
+    pub fn put_sentence_embeddings(
+        &mut self,
+        model: &str,
+        items: &[(String, Vec<f32>)],
+        through: ChunkId,
+    ) -> Result<()> {
+        let mark = (format!("sentences_embedded:{model}"), through.0.to_string());
+        self.put_embeddings_marked(model, items, Some(mark))
+    }
+
+    /// Chunks after `after` in id order, at most `limit`: id, title, text.
+    pub fn chunks_after(
+        &self,
+        after: ChunkId,
+        limit: usize,
+    ) -> Result<Vec<(ChunkId, String, String)>> {
+        let mut stmt = self
+            .conn
+            .prepare_cached(
+                "SELECT c.id, d.title, c.text FROM chunks c JOIN documents d ON d.rowid = c.doc
+                 WHERE c.id > ?1 ORDER BY c.id LIMIT ?2",
+            )
+            .map_err(|e| self.err(e))?;
+        let rows = stmt
+            .query_map(params![after.0 as i64, limit as i64], |r| {
+                Ok((ChunkId(r.get::<_, i64>(0)? as u64), r.get(1)?, r.get(2)?))
+            })
+            .map_err(|e| self.err(e))?;
+        rows.collect::<rusqlite::Result<Vec<_>>>()
+            .map_err(|e| self.err(e))
+    }
+
+    /// The highest chunk id ever given (0 when none).
+    pub fn last_chunk_id(&self) -> Result<ChunkId> {
+        Ok(ChunkId(self.high_water()?.1))
     }
 
     /// Chunks that have an embedding for `model`, with the vector, where the

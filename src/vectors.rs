@@ -460,6 +460,9 @@ pub struct EmbedReport {
     pub reused: usize,
     pub seconds: f64,
     pub chunks_per_second: f64,
+    /// Candidate sentences and titles embedded for answer selection.
+    #[serde(default)]
+    pub sentences_embedded: usize,
 }
 
 /// Embed every chunk that has no vector for `embedder` yet, committing to
@@ -470,21 +473,21 @@ pub fn embed_pending(
     embedder: &dyn Embedder,
     progress: bool,
 ) -> Result<EmbedReport> {
+    embed_pending_with(store, embedder, progress, true)
+}
+
+/// As [`embed_pending`]; without `sentences`, the chunks only (retrieval
+/// benchmarks, which never answer).
+pub fn embed_pending_with(
+    store: &mut Store,
+    embedder: &dyn Embedder,
+    progress: bool,
+    sentences: bool,
+) -> Result<EmbedReport> {
     let started = Instant::now();
     let model = embedder.id().to_owned();
     let total = store.count_pending_embeddings(&model)?;
-    let bar = if progress && total > 0 {
-        let bar = indicatif::ProgressBar::new(total);
-        bar.set_style(
-            indicatif::ProgressStyle::with_template(
-                "{spinner} embedding [{elapsed_precise}] {bar:30} {pos}/{len} chunks ({per_sec}, ETA {eta})",
-            )
-            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
-        );
-        bar
-    } else {
-        indicatif::ProgressBar::hidden()
-    };
+    let bar = chunk_bar(progress && total > 0, total, "embedding");
     let mut report = EmbedReport {
         model: model.clone(),
         ..Default::default()
@@ -510,6 +513,9 @@ pub fn embed_pending(
         bar.inc(batch.len() as u64);
     }
     bar.finish_and_clear();
+    if sentences {
+        report.sentences_embedded = embed_pending_sentences(store, embedder, progress)?;
+    }
     report.seconds = started.elapsed().as_secs_f64();
     report.chunks_per_second = if report.seconds > 0.0 {
         report.embedded as f64 / report.seconds
@@ -519,6 +525,82 @@ pub fn embed_pending(
     Ok(report)
 }
 
+/// A progress bar over `total` chunks (hidden unless `show`).
+fn chunk_bar(show: bool, total: u64, what: &str) -> indicatif::ProgressBar {
+    if !show {
+        return indicatif::ProgressBar::hidden();
+    }
+    let bar = indicatif::ProgressBar::new(total);
+    bar.set_style(
+        indicatif::ProgressStyle::with_template(&format!(
+            "{{spinner}} {what} [{{elapsed_precise}}] {{bar:30}} {{pos}}/{{len}} chunks ({{per_sec}}, ETA {{eta}})"
+        ))
+        .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
+    );
+    bar
+}
+
+/// Embed the candidate sentences and titles of every chunk added since the
+/// last run (chunk ids only grow), so answer selection finds their vectors
+/// stored. Committed every [`EMBED_COMMIT`] chunks with the mark of how far
+/// it got; a text already stored (the same sentence in overlapping chunks,
+/// a repeated title) is not embedded again. Returns how many were embedded.
+pub fn embed_pending_sentences(
+    store: &mut Store,
+    embedder: &dyn Embedder,
+    progress: bool,
+) -> Result<usize> {
+    let model = embedder.id().to_owned();
+    let mut after = store.sentences_embedded_through(&model)?;
+    let last = store.last_chunk_id()?;
+    if after >= last {
+        return Ok(0);
+    }
+    let bar = chunk_bar(progress, last.0 - after.0, "embedding sentences");
+    let start = after;
+    let mut done = 0;
+    loop {
+        let batch = store.chunks_after(after, EMBED_COMMIT)?;
+        let Some((through, _, _)) = batch.last() else {
+            break;
+        };
+        let through = *through;
+        let inputs =
+            crate::select::inputs_of(batch.iter().map(|(_, t, x)| (t.as_str(), x.as_str())));
+        let keys: Vec<String> = inputs
+            .iter()
+            .map(|t| crate::store::embedding_key(t))
+            .collect();
+        let missing: HashSet<String> = store
+            .missing_embeddings(&model, &keys)?
+            .into_iter()
+            .collect();
+        let todo: Vec<(&String, &str)> = keys
+            .iter()
+            .zip(&inputs)
+            .filter(|(k, _)| missing.contains(*k))
+            .map(|(k, t)| (k, t.as_str()))
+            .collect();
+        let texts: Vec<&str> = todo.iter().map(|(_, t)| *t).collect();
+        let vectors = if texts.is_empty() {
+            Vec::new()
+        } else {
+            embedder.embed(&texts)?
+        };
+        let items: Vec<(String, Vec<f32>)> = todo
+            .iter()
+            .map(|(k, _)| (*k).clone())
+            .zip(vectors)
+            .collect();
+        store.put_sentence_embeddings(&model, &items, through)?;
+        done += items.len();
+        bar.set_position(through.0 - start.0);
+        after = through;
+    }
+    bar.finish_and_clear();
+    Ok(done)
+}
+
 /// Embed what is pending in the index at `index_dir` and bring its vector
 /// index up to date: the step ingest runs after storing documents.
 pub fn update(
@@ -526,8 +608,19 @@ pub fn update(
     embedder: &dyn Embedder,
     progress: bool,
 ) -> Result<(EmbedReport, SyncReport)> {
+    update_with(index_dir, embedder, progress, true)
+}
+
+/// As [`update`]; without `sentences`, the chunks only (retrieval
+/// benchmarks, which never answer).
+pub fn update_with(
+    index_dir: &Path,
+    embedder: &dyn Embedder,
+    progress: bool,
+    sentences: bool,
+) -> Result<(EmbedReport, SyncReport)> {
     let mut store = Store::open(index_dir)?;
-    let report = embed_pending(&mut store, embedder, progress)?;
+    let report = embed_pending_with(&mut store, embedder, progress, sentences)?;
     let vi = VectorIndex::open_synced(
         index_dir,
         &store,

@@ -112,10 +112,11 @@ fn first_verified(
         question,
         retrieved: &retrieved,
         query_terms: &query_terms,
+        selection: None,
     };
     let cfg = ModelDraftConfig::default();
     let drafter = onrecord::draft::ModelDrafter::new(model.clone(), cfg.clone());
-    let (excerpts, _) = drafter.excerpts(&req).unwrap();
+    let (excerpts, from, _) = drafter.excerpts(&req).unwrap();
     let messages = onrecord::prompt::answer_messages(question, &excerpts).unwrap();
     let chunks: HashMap<ChunkId, _> = retrieved
         .iter()
@@ -149,13 +150,14 @@ fn first_verified(
                     .iter()
                     .filter(|c| (1..=excerpts.len()).contains(&c.excerpt))
                     .map(|c| DraftCitation {
-                        chunk_id: retrieved[c.excerpt - 1].chunk.id,
+                        chunk_id: retrieved[from[c.excerpt - 1]].chunk.id,
                         quote: c.quote.clone().unwrap_or_else(|| s.text.clone()),
                     })
                     .collect(),
             }],
             abstain: None,
             model: None,
+            set_aside: vec![],
         };
         let v = verify(&draft, &chunks, &RulesJudge::default(), &|_, _| None);
         first = Some((
@@ -238,6 +240,7 @@ fn rewrite_recall(index: &Index, model: &LocalModel) {
                     judge: &RulesJudge::default(),
                     fallback: None,
                     rewrite,
+                    selector: None,
                 },
             )
             .unwrap();

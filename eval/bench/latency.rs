@@ -113,7 +113,7 @@ fn run(n: u64) {
     let ingest_s = t.elapsed().as_secs_f64();
     let e: Arc<dyn Embedder> = Arc::new(Projection);
     let t = Instant::now();
-    let (er, _) = onrecord::vectors::update(dir, e.as_ref(), false).unwrap();
+    let (er, _) = onrecord::vectors::update_with(dir, e.as_ref(), false, false).unwrap();
     let vec_s = t.elapsed().as_secs_f64();
     let index = Index::open_with(dir, Some(e.clone())).unwrap();
     let queries: Vec<String> = (0..300)

@@ -22,6 +22,9 @@ pub struct ModelDraftConfig {
     /// Most prompt tokens, below the model's own window; excerpts are
     /// trimmed to fit.
     pub max_prompt_tokens: usize,
+    /// Show the model the selector's likeliest sentences, each with the
+    /// sentences around it, instead of whole retrieved passages.
+    pub selected_excerpts: bool,
     pub generation: GenOptions,
 }
 
@@ -30,6 +33,7 @@ impl Default for ModelDraftConfig {
         ModelDraftConfig {
             max_excerpts: 5,
             max_prompt_tokens: 1536,
+            selected_excerpts: true,
             generation: GenOptions::default(),
         }
     }
@@ -88,9 +92,48 @@ impl ModelDrafter {
         }
     }
 
+    /// What the model is shown, before trimming: (chunk index, title,
+    /// date, pages, text). With a selection (and `selected_excerpts`), the
+    /// likeliest candidate sentences each with its neighbours in the
+    /// chunk, best first; else the retrieved passages in rank order.
+    fn sources(&self, req: &DraftRequest<'_>) -> Vec<(usize, String)> {
+        let n = self.cfg.max_excerpts;
+        match req.selection {
+            Some(sel) if self.cfg.selected_excerpts && !sel.candidates.is_empty() => {
+                let mut out: Vec<(usize, std::ops::Range<usize>)> = Vec::new();
+                for c in sel.candidates.iter().filter(|c| c.off_question.is_none()) {
+                    if out.len() == n {
+                        break;
+                    }
+                    let text = &req.retrieved[c.chunk_idx].chunk.text;
+                    let w = window(text, &c.span);
+                    // A window overlapping one already shown adds nothing.
+                    if out
+                        .iter()
+                        .any(|(i, r)| *i == c.chunk_idx && r.start < w.end && w.start < r.end)
+                    {
+                        continue;
+                    }
+                    out.push((c.chunk_idx, w));
+                }
+                out.into_iter()
+                    .map(|(i, r)| (i, req.retrieved[i].chunk.text[r].to_string()))
+                    .collect()
+            }
+            _ => req
+                .retrieved
+                .iter()
+                .take(n)
+                .enumerate()
+                .map(|(i, r)| (i, r.chunk.text.clone()))
+                .collect(),
+        }
+    }
+
     /// The excerpts shown to the model for `req`, trimmed to the token
-    /// budget; returns (excerpts, how many were cut).
-    pub fn excerpts(&self, req: &DraftRequest<'_>) -> Result<(Vec<Excerpt>, usize)> {
+    /// budget; returns (excerpts, the retrieved chunk each comes from, how
+    /// many were cut).
+    pub fn excerpts(&self, req: &DraftRequest<'_>) -> Result<(Vec<Excerpt>, Vec<usize>, usize)> {
         let window = self.generator.context_window().unwrap_or(4096);
         let budget = self
             .cfg
@@ -102,17 +145,13 @@ impl ModelDrafter {
             .sum();
         let mut left = budget.saturating_sub(overhead);
         let mut out = Vec::new();
+        let mut from = Vec::new();
         let mut trimmed = 0;
-        for (i, r) in req.retrieved.iter().take(self.cfg.max_excerpts).enumerate() {
-            let c = &r.chunk;
-            let text = c.text.replace(PAGE_BREAK, "\n");
-            let head = format!(
-                "[{}] {} ({:?}), {}",
-                i + 1,
-                c.title,
-                c.date,
-                c.span.pages_label()
-            );
+        for (i, (ci, text)) in self.sources(req).into_iter().enumerate() {
+            let c = &req.retrieved[ci].chunk;
+            let pages = pages_of(c, &text);
+            let text = text.replace(PAGE_BREAK, "\n");
+            let head = format!("[{}] {} ({:?}), {}", i + 1, c.title, c.date, pages);
             let cost = self.generator.count_tokens(&head) + 24;
             if left <= cost + 48 {
                 break;
@@ -132,15 +171,48 @@ impl ModelDrafter {
                 n: i + 1,
                 title: c.title.clone(),
                 date: c.date.clone(),
-                pages: c.span.pages_label(),
+                pages,
                 text,
             });
+            from.push(ci);
             if left == 0 {
                 break;
             }
         }
-        Ok((out, trimmed))
+        Ok((out, from, trimmed))
     }
+}
+
+/// The candidate's sentence with the sentence before and after it in the
+/// chunk (within the chunk), as a byte range of the chunk's text.
+fn window(text: &str, span: &std::ops::Range<usize>) -> std::ops::Range<usize> {
+    let spans = crate::segment::sentence_spans(text);
+    let at = spans
+        .iter()
+        .position(|r| r.start <= span.start && span.start < r.end.max(r.start + 1));
+    match at {
+        Some(i) => {
+            let lo = spans[i.saturating_sub(1)].start.min(span.start);
+            let hi = spans[(i + 1).min(spans.len() - 1)].end.max(span.end);
+            lo..hi
+        }
+        None => span.clone(),
+    }
+}
+
+/// The page label of `part` (a piece of the chunk's text, or all of it).
+fn pages_of(c: &crate::store::StoredChunk, part: &str) -> String {
+    let Some(at) = c.text.find(part) else {
+        return c.span.pages_label();
+    };
+    let before = c.text[..at].matches(PAGE_BREAK).count() as u32;
+    let within = part.matches(PAGE_BREAK).count() as u32;
+    let span = crate::types::ChunkSpan {
+        start_page: c.span.start_page + before,
+        end_page: c.span.start_page + before + within,
+        ..c.span
+    };
+    span.pages_label()
 }
 
 impl Drafter for ModelDrafter {
@@ -154,9 +226,10 @@ impl Drafter for ModelDrafter {
                 sentences: vec![],
                 abstain: Some("no record matched the question".into()),
                 model: None,
+                set_aside: vec![],
             });
         }
-        let (excerpts, trimmed) = self.excerpts(req)?;
+        let (excerpts, from, trimmed) = self.excerpts(req)?;
         let messages = prompt::answer_messages(req.question, &excerpts)?;
         let mut sink = |s: &str| {
             if let Some(f) = &self.on_text {
@@ -178,7 +251,7 @@ impl Drafter for ModelDrafter {
                     .iter()
                     .filter(|c| (1..=excerpts.len()).contains(&c.excerpt))
                     .map(|c| DraftCitation {
-                        chunk_id: req.retrieved[c.excerpt - 1].chunk.id,
+                        chunk_id: req.retrieved[from[c.excerpt - 1]].chunk.id,
                         // A marker without a quote claims the sentence
                         // itself is the excerpt's wording.
                         quote: c.quote.clone().unwrap_or_else(|| p.text.clone()),
@@ -209,6 +282,7 @@ impl Drafter for ModelDrafter {
                 excerpts_trimmed: trimmed,
                 said_no_answer: parsed.no_answer,
             }),
+            set_aside: vec![],
         })
     }
 }
@@ -276,13 +350,14 @@ mod tests {
             question: "What happened?",
             retrieved: &hits,
             query_terms: &[],
+            selection: None,
         };
         for window in [1200usize, 2000, 8000] {
             let g = Words(window);
             let mut cfg = ModelDraftConfig::default();
             cfg.generation.max_tokens = 200;
             let d = ModelDrafter::new(std::sync::Arc::new(g), cfg.clone());
-            let (ex, trimmed) = d.excerpts(&req).unwrap();
+            let (ex, _, trimmed) = d.excerpts(&req).unwrap();
             let prompt: usize = prompt::answer_messages(req.question, &ex)
                 .unwrap()
                 .iter()

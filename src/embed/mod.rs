@@ -14,6 +14,7 @@
 //! truncation change, so vectors from different models are never mixed.
 
 pub mod bert;
+pub mod cache;
 pub mod hub;
 
 use crate::error::{Error, Result};

@@ -209,7 +209,8 @@ pub fn run_all(
     let mut notes = Vec::new();
     let mut vreport = None;
     if let Some(e) = &embedder {
-        let (er, _) = crate::vectors::update(index_dir, e.as_ref(), progress)?;
+        // Retrieval only: the answer selector's sentence vectors are not needed.
+        let (er, _) = crate::vectors::update_with(index_dir, e.as_ref(), progress, false)?;
         vreport = Some(VectorReport {
             embedder: e.id().to_owned(),
             chunks: report.chunks,

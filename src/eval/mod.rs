@@ -14,6 +14,7 @@ pub mod pairs;
 pub mod questions;
 pub mod report;
 pub mod run;
+pub mod selection;
 pub mod squad;
 
 /// Peak resident memory of this process in MiB (Linux `VmHWM`), NaN where

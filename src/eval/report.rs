@@ -265,6 +265,29 @@ pub fn html(r: &EvalReport) -> String {
     h.push_str("</tbody>\n</table>\n");
     h.push_str("<p>Retrieval figures count a page (or document) as found when any retrieved passage lies on it; k is each configuration's own. Answer figures follow the SQuAD v1.1 evaluation (lower case, no punctuation or articles). Citation precision and recall compare cited pages with the gold pages; the ALCE figures ask a second judge whether each sentence's citations support it (recall) and whether each citation is needed (precision).</p>\n");
 
+    let groups = group_rows(r);
+    if !groups.is_empty() {
+        h.push_str("<h2 id=\"groups\">By question group</h2>\n<p>Questions are grouped by the letters their ids start with.</p>\n<table>\n<thead><tr><th scope=\"col\">group</th><th scope=\"col\">metric</th>");
+        for c in &r.configs {
+            let _ = write!(h, "<th scope=\"col\">{}</th>", esc(&c.name));
+        }
+        h.push_str("</tr></thead>\n<tbody>\n");
+        for (g, n, key, label) in &groups {
+            let _ = write!(
+                h,
+                "<tr><th scope=\"row\">{} ({n})</th><td>{}</td>",
+                esc(g),
+                esc(label)
+            );
+            for c in &r.configs {
+                let v = c.groups.get(g).and_then(|x| x.headline.get(*key)).copied();
+                let _ = write!(h, "<td class=\"num\">{}</td>", fmt_metric(v));
+            }
+            h.push_str("</tr>\n");
+        }
+        h.push_str("</tbody>\n</table>\n");
+    }
+
     h.push_str("<h2 id=\"charts\">Charts</h2>\n");
     let labels: Vec<String> = HEADLINE.iter().map(|(k, _)| k.to_string()).collect();
     let series: Vec<(String, Vec<Option<f64>>)> = r
@@ -457,12 +480,42 @@ pub fn html(r: &EvalReport) -> String {
     h
 }
 
+/// Metrics shown per question group.
+const GROUP_METRICS: &[&str] = &[
+    "answer_contained",
+    "answered_rate",
+    "abstain_recall",
+    "page_recall@k",
+    "citation_precision",
+];
+
+/// (group, questions, metric key, label) for every group metric that any
+/// configuration has, groups in order.
+fn group_rows(r: &EvalReport) -> Vec<(String, usize, &'static str, &'static str)> {
+    let mut out = Vec::new();
+    let Some(first) = r.configs.iter().find(|c| !c.groups.is_empty()) else {
+        return out;
+    };
+    for (g, grp) in &first.groups {
+        for key in GROUP_METRICS {
+            if r.configs.iter().any(|c| {
+                c.groups
+                    .get(g)
+                    .is_some_and(|x| x.headline.contains_key(*key))
+            }) {
+                out.push((g.clone(), grp.questions, *key, label_of(key)));
+            }
+        }
+    }
+    out
+}
+
 /// A metric's reader-facing label.
-fn label_of(key: &str) -> &str {
+fn label_of(key: &str) -> &'static str {
     HEADLINE
         .iter()
         .find(|(k, _)| *k == key)
-        .map_or(key, |(_, l)| l)
+        .map_or("", |(_, l)| l)
 }
 
 /// A Markdown summary: the headline table and the comparisons.
@@ -501,6 +554,27 @@ pub fn markdown(r: &EvalReport) -> String {
         );
     }
     m.push('\n');
+    let groups = group_rows(r);
+    if !groups.is_empty() {
+        let _ = writeln!(m, "\n## By question group\n");
+        let _ = write!(m, "| group | metric |");
+        for c in &r.configs {
+            let _ = write!(m, " {} |", c.name);
+        }
+        let _ = write!(m, "\n|---|---|");
+        for _ in &r.configs {
+            m.push_str("---:|");
+        }
+        m.push('\n');
+        for (g, n, key, label) in &groups {
+            let _ = write!(m, "| {g} ({n}) | {label} |");
+            for c in &r.configs {
+                let v = c.groups.get(g).and_then(|x| x.headline.get(*key)).copied();
+                let _ = write!(m, " {} |", fmt_metric(v));
+            }
+            m.push('\n');
+        }
+    }
     for cmp in &r.comparisons {
         let _ = writeln!(
             m,

@@ -97,6 +97,11 @@ pub struct DraftingSection {
     /// For model drafters: most tokens generated.
     #[serde(default)]
     pub max_tokens: Option<usize>,
+    /// For model drafters: what the model reads, `selected` (the
+    /// selector's likeliest sentences with their neighbours; the default)
+    /// or `passages` (whole retrieved passages).
+    #[serde(default)]
+    pub excerpts: Option<String>,
 }
 
 #[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
@@ -268,10 +273,54 @@ pub struct ConfigRun {
     /// The judge that scored citations.
     pub citation_judge: String,
     pub headline: BTreeMap<String, f64>,
+    /// The headline metrics of each group of questions, when the set has
+    /// more than one: questions are grouped by the letters their ids start
+    /// with (the demo's `r` questions are worded as a reporter words them,
+    /// its `n` questions are near misses the records do not answer).
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub groups: BTreeMap<String, Group>,
     pub latency: Latency,
     /// How many struck sentences gave each kind of reason.
     pub strike_reasons: BTreeMap<String, usize>,
     pub questions: Vec<QuestionRun>,
+}
+
+/// One group of questions' figures.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct Group {
+    pub questions: usize,
+    pub headline: BTreeMap<String, f64>,
+}
+
+/// The group of a question id: the letters it starts with (`r12` → `r`).
+pub fn group_of(id: &str) -> &str {
+    let end = id
+        .char_indices()
+        .find(|(_, c)| !c.is_ascii_alphabetic())
+        .map_or(id.len(), |(i, _)| i);
+    &id[..end]
+}
+
+/// Headline metrics per group, or nothing when there is only one group.
+pub fn groups(runs: &[QuestionRun]) -> BTreeMap<String, Group> {
+    let mut by: BTreeMap<String, Vec<&QuestionRun>> = BTreeMap::new();
+    for r in runs {
+        by.entry(group_of(&r.id).to_string()).or_default().push(r);
+    }
+    if by.len() < 2 {
+        return BTreeMap::new();
+    }
+    by.into_iter()
+        .map(|(g, qs)| {
+            (
+                g,
+                Group {
+                    questions: qs.len(),
+                    headline: headline(&qs),
+                },
+            )
+        })
+        .collect()
 }
 
 /// A configuration that could not run, and why.
@@ -653,7 +702,7 @@ pub fn prepare(config: EvalConfig, file: String) -> Result<Prepared> {
         ext.max_sentences = n;
     }
     if let Some(s) = config.drafting.min_score {
-        ext.min_score = s;
+        ext.min_score = Some(s);
     }
     let kind = config.drafting.drafter.as_deref().unwrap_or("extractive");
     let (drafter, settings, fallback): (Box<dyn Drafter>, serde_json::Value, _) = match kind {
@@ -691,6 +740,16 @@ pub fn prepare(config: EvalConfig, file: String) -> Result<Prepared> {
             if let Some(t) = config.drafting.max_tokens {
                 mc.generation.max_tokens = t;
             }
+            mc.selected_excerpts = match config.drafting.excerpts.as_deref() {
+                None | Some("selected") => true,
+                Some("passages") => false,
+                Some(other) => {
+                    return Err(Error::Invalid(format!(
+                        "configuration `{}`: excerpts must be `selected` or `passages`, not `{other}`",
+                        config.name
+                    )));
+                }
+            };
             let settings = serde_json::to_value(&mc).unwrap_or_default();
             (
                 Box::new(ModelDrafter::new(model, mc)),
@@ -751,6 +810,7 @@ pub fn run_config(
                 judge: p.judge.as_ref(),
                 fallback: p.fallback.as_ref().map(|f| f as &dyn Drafter),
                 rewrite: None,
+                selector: None,
             },
         )
         .map_err(|e| {
@@ -784,6 +844,7 @@ pub fn run_config(
         file: p.file.clone(),
         citation_judge: p.citation_judge.name().into(),
         headline: headline(&refs),
+        groups: groups(&runs),
         latency: Latency {
             retrieve: spread(|t| t.retrieve_ms),
             draft: spread(|t| t.draft_ms),

@@ -2,16 +2,17 @@
 //! the odd-numbered ones are ingested (one page per paragraph) and the
 //! even-numbered ones are left out; questions on the ingested articles are
 //! answerable, questions on the others are not (the records are silent).
-//! The extractive drafter's best-sentence score is recorded for each
-//! question; a threshold is chosen on articles 1–24 by Youden's J (answer
-//! rate on answerable + abstention rate on unanswerable − 1) and reported on
-//! articles 25–48, which are never used for tuning.
+//! The selector's probability that its best sentence answers (words-only
+//! model, BM25 retrieval) is recorded for each question; a threshold is
+//! chosen on articles 1–24 by Youden's J (answer rate on answerable +
+//! abstention rate on unanswerable − 1) and reported on articles 25–48,
+//! which are never used for tuning.
 
 use crate::chunk::ChunkConfig;
-use crate::draft::{DraftRequest, Extractive, ExtractiveConfig};
 use crate::error::{Error, Result};
 use crate::ingest::{MemDoc, ingest_docs};
 use crate::retrieve::Index;
+use crate::select::Selector;
 use crate::text::normalize;
 use crate::types::{DocId, DocMeta, Filters};
 use serde::{Deserialize, Serialize};
@@ -46,6 +47,8 @@ pub(crate) struct Qa {
 #[derive(Deserialize)]
 pub(crate) struct Answer {
     pub(crate) text: String,
+    #[serde(default)]
+    pub(crate) answer_start: Option<usize>,
 }
 
 /// Read a SQuAD v1.1 file.
@@ -159,12 +162,7 @@ pub fn score_range(
     }
     ingest_docs(index_dir, docs, ChunkConfig::default(), None)?;
     let index = Index::open(index_dir)?;
-    let cfg = ExtractiveConfig {
-        min_score: 0.0,
-        max_sentences: 1,
-        ..Default::default()
-    };
-    let drafter = Extractive::new(cfg);
+    let selector = Selector::default();
     let mut out = Vec::new();
     for (set, is_answerable) in [(answerable, true), (unanswerable, false)] {
         let step = set.len().div_ceil(cap.max(1)).max(1);
@@ -175,12 +173,8 @@ pub fn score_range(
                 crate::answer::MAX_CHUNKS_PER_DOC,
             );
             let terms = index.query_terms(&q)?;
-            let cands = drafter.candidates(&DraftRequest {
-                question: &q,
-                retrieved: &retrieved,
-                query_terms: &terms,
-            });
-            let top = cands.first();
+            let sel = selector.select(&q, &retrieved, &terms, None);
+            let top = sel.best();
             let gold_in_top = top.is_some_and(|c| {
                 let t = normalize(&c.text).text.to_lowercase();
                 golds
@@ -189,7 +183,7 @@ pub fn score_range(
             });
             out.push(Scored {
                 answerable: is_answerable,
-                best: top.map(|c| c.score).unwrap_or(0.0),
+                best: top.map(|c| c.probability).unwrap_or(0.0),
                 gold_in_top,
             });
         }

@@ -139,6 +139,41 @@ pub fn render_answer(a: &AnswerRecord) -> String {
             .collect();
         render_claims(&mut out, &pairs);
     }
+    // Block quotes with page references in words, not footnotes: these
+    // are not answers, and replay does not check them.
+    let place = |c: &crate::types::Citation| match c.end_page {
+        Some(e) if e != c.page => format!("doc `{}`, pages {}-{e}", c.doc_id, c.page),
+        _ => format!("doc `{}`, page {}", c.doc_id, c.page),
+    };
+    if !a.closest.is_empty() {
+        let mut q = String::from(
+            "**Closest sentences in the records** (not answers; check them yourself):\n\n",
+        );
+        for c in &a.closest {
+            let at = c.citations.first().map(place).unwrap_or_default();
+            let _ = writeln!(
+                q,
+                "- \u{201C}{}\u{201D} ({at}) \u{2014} {}",
+                one_line(&c.text),
+                c.why_not
+            );
+        }
+        blockquote(&mut out, &q);
+    }
+    if !a.off_question.is_empty() {
+        let mut q =
+            String::from("**Supported by the records, but not an answer to this question:**\n\n");
+        for s in &a.off_question {
+            let at = s.citations.first().map(place).unwrap_or_default();
+            let _ = writeln!(
+                q,
+                "- \u{201C}{}\u{201D} ({at}) \u{2014} {}",
+                one_line(&s.text),
+                s.reason.as_deref().unwrap_or("not about what was asked")
+            );
+        }
+        blockquote(&mut out, &q);
+    }
     let mut struck: Vec<_> = a.struck().collect();
     if let Some(d) = &a.draft {
         struck.extend(d.verdicts.iter().filter(|s| s.verdict == Verdict::Struck));

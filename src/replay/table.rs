@@ -83,12 +83,29 @@ fn sentence_rows<W: Write>(
         crate::verify::Verdict::Supported => "supported",
         crate::verify::Verdict::Struck => "struck",
     };
-    let reason = s.reason.as_deref().unwrap_or("");
-    let lead = [question, s.text.as_str(), verdict, reason];
-    if s.citations.is_empty() {
+    quote_rows(
+        w,
+        question,
+        &s.text,
+        verdict,
+        s.reason.as_deref().unwrap_or(""),
+        &s.citations,
+    )
+}
+
+fn quote_rows<W: Write>(
+    w: &mut csv::Writer<W>,
+    question: &str,
+    text: &str,
+    verdict: &str,
+    reason: &str,
+    citations: &[crate::types::Citation],
+) -> csv::Result<()> {
+    let lead = [question, text, verdict, reason];
+    if citations.is_empty() {
         return row(w, lead, None, None);
     }
-    for c in &s.citations {
+    for c in citations {
         row(w, lead, Some(&CitedQuote::from(c)), c.ocr.as_ref())?;
     }
     Ok(())
@@ -106,6 +123,29 @@ pub fn write_answer<W: Write>(a: &AnswerRecord, out: W) -> csv::Result<()> {
         for s in &d.verdicts {
             sentence_rows(&mut w, &a.question, s)?;
         }
+    }
+    // Supported sentences that do not answer, and a declined answer's
+    // closest sentences: listed with their own verdicts, never as answers.
+    for s in &a.off_question {
+        let reason = s.reason.as_deref().unwrap_or("");
+        quote_rows(
+            &mut w,
+            &a.question,
+            &s.text,
+            "not an answer",
+            reason,
+            &s.citations,
+        )?;
+    }
+    for c in &a.closest {
+        quote_rows(
+            &mut w,
+            &a.question,
+            &c.text,
+            "closest, not an answer",
+            &c.why_not,
+            &c.citations,
+        )?;
     }
     w.flush()?;
     Ok(())

@@ -141,9 +141,7 @@ impl LearnedJudge {
     }
 }
 
-fn sigmoid(z: f32) -> f32 {
-    1.0 / (1.0 + (-z).exp())
-}
+use crate::learn::sigmoid;
 
 impl Judge for LearnedJudge {
     fn name(&self) -> &'static str {
@@ -183,34 +181,11 @@ pub struct Example {
     pub supported: bool,
 }
 
-/// Fit logistic regression by full-batch gradient descent with L2
-/// regularisation (not on the bias) and class weights that balance the two
-/// labels. Deterministic: no sampling.
+/// Fit logistic regression (see [`crate::learn::fit_logistic`]): L2
+/// regularisation not on the bias, balanced class weights. Deterministic.
 pub fn fit(examples: &[Example], l2: f32, epochs: usize) -> Vec<f32> {
-    let n = FEATURES.len();
-    let mut w = vec![0.0f32; n];
-    let pos = examples.iter().filter(|e| e.supported).count().max(1) as f32;
-    let neg = examples.iter().filter(|e| !e.supported).count().max(1) as f32;
-    let total = pos + neg;
-    let (wp, wn) = (total / (2.0 * pos), total / (2.0 * neg));
-    let lr = 1.0f32;
-    for _ in 0..epochs {
-        let mut grad = vec![0.0f32; n];
-        for e in examples {
-            let z: f32 = e.x.iter().zip(&w).map(|(a, b)| a * b).sum();
-            let y = if e.supported { 1.0 } else { 0.0 };
-            let cw = if e.supported { wp } else { wn };
-            let d = cw * (sigmoid(z) - y);
-            for (g, xi) in grad.iter_mut().zip(&e.x) {
-                *g += d * xi;
-            }
-        }
-        for (i, (wi, g)) in w.iter_mut().zip(&grad).enumerate() {
-            let reg = if i == 0 { 0.0 } else { l2 * *wi };
-            *wi -= lr * (g / total + reg);
-        }
-    }
-    w
+    let rows: Vec<(&[f32], bool)> = examples.iter().map(|e| (&e.x[..], e.supported)).collect();
+    crate::learn::fit_logistic(&rows, l2, epochs, 1.0)
 }
 
 /// The lowest threshold at which the pass-through on `examples` (share of

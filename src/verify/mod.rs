@@ -45,6 +45,9 @@ pub struct Draft {
     pub abstain: Option<String>,
     /// A language model's own text and costs, when a model wrote the draft.
     pub model: Option<crate::draft::ModelDraft>,
+    /// Sentences likely to answer that the relevance check set aside, each
+    /// with its reason: verified and listed apart, never given as answers.
+    pub set_aside: Vec<(DraftSentence, String)>,
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]

@@ -533,6 +533,7 @@ fn run_ask(
             judge: judge.as_ref(),
             fallback: (job.drafter != "extractive").then_some(&fallback as &dyn Drafter),
             rewrite: None,
+            selector: None,
         },
     )
     .map_err(|e| match e {

@@ -90,6 +90,7 @@ impl Drafter for Fixed {
                 .collect(),
             abstain: None,
             model: None,
+            set_aside: vec![],
         })
     }
 }

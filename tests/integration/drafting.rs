@@ -65,6 +65,7 @@ fn ask_model(
             judge: &RulesJudge::default(),
             fallback: Some(&fallback),
             rewrite: None,
+            selector: None,
         },
     )
     .unwrap()
@@ -350,6 +351,7 @@ fn the_local_drafter_answers_a_demo_question_with_located_quotes() {
             judge: &RulesJudge::default(),
             fallback: Some(&fallback),
             rewrite: None,
+            selector: None,
         },
     )
     .unwrap();

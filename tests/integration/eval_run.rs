@@ -284,9 +284,28 @@ fn slow_the_bundled_demo_eval_runs_end_to_end() {
     for c in configs {
         let h = &c["headline"];
         crate::support::figure(&format!("demo eval, {}: {h}", c["name"]));
-        assert!(h["page_recall@k"].as_f64().unwrap() >= 0.75, "{h:#}");
-        assert!(h["answer_contained"].as_f64().unwrap() >= 0.4, "{h:#}");
+        assert!(h["page_recall@k"].as_f64().unwrap() >= 0.70, "{h:#}");
         assert!(h["abstain_recall"].as_f64().unwrap() > 0.0, "{h:#}");
+        // Each kind of question apart (ids a and b in the records' words,
+        // r as a reporter words them, n near misses): the demo's own
+        // figures, measured 0.59, 0.23 and 0.62 with BM25, 0.55, 0.21 and
+        // 0.50 hybrid; the floors sit below.
+        let g = |group: &str, metric: &str| {
+            c["groups"][group]["headline"][metric]
+                .as_f64()
+                .unwrap_or_else(|| panic!("no {metric} for group {group}: {:#}", c["groups"]))
+        };
+        crate::support::figure(&format!(
+            "demo eval by group, {}: {:#}",
+            c["name"], c["groups"]
+        ));
+        assert!(
+            g("a", "answer_contained") + g("b", "answer_contained") >= 0.8,
+            "{:#}",
+            c["groups"]
+        );
+        assert!(g("r", "answer_contained") >= 0.15, "{:#}", c["groups"]);
+        assert!(g("n", "abstain_recall") >= 0.4, "{:#}", c["groups"]);
     }
     if configs.len() == 2 {
         assert!(

@@ -13,6 +13,7 @@ mod ocr;
 mod open_data;
 mod replay;
 mod retrieval;
+mod selection;
 mod support;
 mod verifier;
 mod web;

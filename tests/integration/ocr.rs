@@ -154,6 +154,14 @@ fn questions_answerable_only_from_scans_cite_their_gold_page() {
     let (mut asked, mut cited, mut misses) = (0, 0, Vec::new());
     for line in text.lines().filter(|l| !l.trim().is_empty()) {
         let q: serde_json::Value = serde_json::from_str(line).unwrap();
+        // The questions in the records' words; the reporter-worded ones
+        // (r, n) measure the answer selector (tests/integration/demo.rs).
+        if q["id"]
+            .as_str()
+            .is_some_and(|id| id.starts_with(['r', 'n']))
+        {
+            continue;
+        }
         let gold: Vec<(String, u32)> = q["evidence"]
             .as_array()
             .unwrap()

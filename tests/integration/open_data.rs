@@ -94,13 +94,16 @@ fn retrieval_on_scifact_reaches_the_published_baselines() {
 }
 
 /// Abstention on SQuAD v1.1 dev (Rajpurkar et al. 2016; CC BY-SA 4.0), split
-/// as ../shared/data/README.md prescribes: the threshold is tuned on
-/// articles 1-24 and the figures are reported on articles 25-48. Odd articles
-/// are ingested, even ones left out, so questions on the latter have no
-/// answer in the records. The shipped default must be the tuned value, and
-/// on the held-out articles the drafter must answer most answerable
-/// questions and abstain on most unanswerable ones (floors set a little
-/// below the measured 0.902 answered, 0.596 gold-in-top, 0.779 abstained).
+/// as ../shared/data/README.md prescribes: the words-only selector and its
+/// threshold were trained on WikiQA and articles 1-24, and the figures are
+/// reported on articles 25-48. Odd articles are ingested, even ones left
+/// out, so questions on the latter have no answer in the records. On the
+/// held-out articles the selector must answer most answerable questions
+/// and decline most unanswerable ones (floors set a little below the
+/// measured 0.753 answered, 0.589 gold in the top sentence, 0.957
+/// declined; the rule-based drafter before it measured 0.902, 0.596 and
+/// 0.779). The best threshold by Youden's J on articles 1-24 is printed
+/// for comparison.
 #[test]
 fn abstention_threshold_is_calibrated_on_squad() {
     use onrecord::eval::squad::{at_threshold, best_threshold, score_range};
@@ -114,16 +117,17 @@ fn abstention_threshold_is_calibrated_on_squad() {
     let (t1, t2) = (tempfile::tempdir().unwrap(), tempfile::tempdir().unwrap());
     let tune = score_range(&file, 1..=24, 600, t1.path()).unwrap();
     let report = score_range(&file, 25..=48, 600, t2.path()).unwrap();
-    let default = onrecord::draft::ExtractiveConfig::default().min_score;
+    let default = onrecord::select::Selector::default()
+        .weights
+        .lexical
+        .threshold;
     let tuned = best_threshold(&tune);
-    assert!(
-        (tuned.threshold - default).abs() < 1e-6,
-        "the tuned threshold {:.2} differs from the default {default:.2}",
-        tuned.threshold
-    );
+    crate::support::figure(&format!(
+        "SQuAD articles 1-24: best threshold by Youden's J {tuned:?}"
+    ));
     let r = at_threshold(&report, default);
     crate::support::figure(&format!("SQuAD articles 25-48 at {default:.2}: {r:?}"));
-    assert!(r.answered >= 0.85, "{r:?}");
+    assert!(r.answered >= 0.70, "{r:?}");
     assert!(r.answered_with_gold >= 0.55, "{r:?}");
-    assert!(r.abstained >= 0.70, "{r:?}");
+    assert!(r.abstained >= 0.90, "{r:?}");
 }

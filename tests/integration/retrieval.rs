@@ -107,6 +107,19 @@ fn embed_all(dir: &Path, e: &dyn Embedder) -> vectors::SyncReport {
     vectors::update(dir, e, false).unwrap().1
 }
 
+/// Texts an update embeds besides the chunks: candidate sentences and titles.
+fn sentence_texts(dir: &Path) -> u64 {
+    let store = Store::open(dir).unwrap();
+    let mut chunks = Vec::new();
+    store
+        .for_each_chunk(|c| {
+            chunks.push((c.title, c.text));
+            Ok(())
+        })
+        .unwrap();
+    onrecord::select::inputs_of(chunks.iter().map(|(t, x)| (t.as_str(), x.as_str()))).len() as u64
+}
+
 #[test]
 fn vector_index_follows_adds_and_replacements_and_rebuilds_from_the_store() {
     let tmp = tempfile::tempdir().unwrap();
@@ -116,12 +129,18 @@ fn vector_index_follows_adds_and_replacements_and_rebuilds_from_the_store() {
     let sync = embed_all(dir, e.as_ref());
     let (_, _, chunks) = Store::open(dir).unwrap().counts().unwrap();
     assert_eq!(sync.total as u64, chunks);
-    assert_eq!(e.embedded() as u64, chunks, "each chunk embedded once");
+    // Each chunk once, and each distinct candidate sentence and title once.
+    let sentences = sentence_texts(dir);
+    assert_eq!(
+        e.embedded() as u64,
+        chunks + sentences,
+        "each chunk and sentence embedded once"
+    );
 
     // Unchanged documents: nothing is embedded again, nothing changes.
     ingest_docs(dir, corpus(30), Default::default(), None).unwrap();
     let again = embed_all(dir, e.as_ref());
-    assert_eq!(e.embedded() as u64, chunks);
+    assert_eq!(e.embedded() as u64, chunks + sentences);
     assert_eq!((again.added, again.removed), (0, 0));
 
     // Replace one document and add one: the old chunk leaves the index,
@@ -136,12 +155,11 @@ fn vector_index_follows_adds_and_replacements_and_rebuilds_from_the_store() {
     ));
     ingest_docs(dir, docs, Default::default(), None).unwrap();
     let before = e.embedded();
-    let sync = embed_all(dir, e.as_ref());
-    assert_eq!(
-        e.embedded() - before,
-        2,
-        "only the two new chunks are embedded"
-    );
+    let (report, sync) = vectors::update(dir, e.as_ref(), false).unwrap();
+    assert_eq!(report.embedded, 2, "only the two new chunks are embedded");
+    // ...and only their sentences (and a new title): one sentence each.
+    assert!((2..=3).contains(&report.sentences_embedded), "{report:?}");
+    assert_eq!(e.embedded() - before, 2 + report.sentences_embedded);
     assert_eq!((sync.added, sync.removed), (2, 1));
     let idx = Index::open_with(dir, Some(e.clone())).unwrap();
     let dense = SearchOptions {

@@ -72,11 +72,29 @@ pub fn ingest_with(
 
 /// Check `v` against the subset of JSON Schema the project's schema files
 /// use (type, required, properties, additionalProperties: false, items,
-/// enum, const). Returns the
+/// enum, const, and `$ref` to `#/$defs/NAME`). Returns the
 /// problems found, each with its JSON path.
 pub fn schema_problems(v: &serde_json::Value, schema: &serde_json::Value, at: &str) -> Vec<String> {
+    schema_problems_in(v, schema, schema, at)
+}
+
+fn schema_problems_in(
+    v: &serde_json::Value,
+    schema: &serde_json::Value,
+    root: &serde_json::Value,
+    at: &str,
+) -> Vec<String> {
     use serde_json::Value;
     let mut out = Vec::new();
+    if let Some(r) = schema.get("$ref").and_then(Value::as_str) {
+        let def = r
+            .strip_prefix("#/$defs/")
+            .and_then(|name| root.get("$defs").and_then(|d| d.get(name)));
+        return match def {
+            Some(d) => schema_problems_in(v, d, root, at),
+            None => vec![format!("{at}: unresolved $ref {r}")],
+        };
+    }
     if let Some(t) = schema.get("type").and_then(Value::as_str) {
         let ok = match t {
             "object" => v.is_object(),
@@ -115,7 +133,7 @@ pub fn schema_problems(v: &serde_json::Value, schema: &serde_json::Value, at: &s
     ) {
         for (k, sub) in props {
             if let Some(val) = obj.get(k) {
-                out.extend(schema_problems(val, sub, &format!("{at}.{k}")));
+                out.extend(schema_problems_in(val, sub, root, &format!("{at}.{k}")));
             }
         }
         if schema.get("additionalProperties") == Some(&Value::Bool(false)) {
@@ -126,7 +144,7 @@ pub fn schema_problems(v: &serde_json::Value, schema: &serde_json::Value, at: &s
     }
     if let (Some(items), Some(arr)) = (schema.get("items"), v.as_array()) {
         for (i, val) in arr.iter().enumerate() {
-            out.extend(schema_problems(val, items, &format!("{at}[{i}]")));
+            out.extend(schema_problems_in(val, items, root, &format!("{at}[{i}]")));
         }
     }
     out

@@ -43,6 +43,7 @@ fn one_sentence(sentence: &str, id: u64, quote: &str) -> Draft {
         }],
         abstain: None,
         model: None,
+        set_aside: vec![],
     }
 }
 

@@ -109,12 +109,22 @@ async fn ask(app: &Router, question: &str) -> (Value, Option<u64>) {
     (r.json(), id)
 }
 
+/// The first supported citation, preferring one that quotes the reopening
+/// date (the answer to `REOPENING` may open with another dated sentence).
 fn first_citation(a: &Value) -> Value {
-    a["sentences"]
+    let supported: Vec<&Value> = a["sentences"]
         .as_array()
         .unwrap()
         .iter()
-        .find(|s| s["verdict"] == "supported")
+        .filter(|s| s["verdict"] == "supported")
+        .collect();
+    let dated = supported.iter().find(|s| {
+        s["citations"][0]["quote"]
+            .as_str()
+            .is_some_and(|q| q.contains("22 April 2024"))
+    });
+    dated
+        .or(supported.first())
         .unwrap_or_else(|| panic!("no supported sentence: {a:#}"))["citations"][0]
         .clone()
 }

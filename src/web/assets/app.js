@@ -239,6 +239,28 @@
     }
     show($("abstained"), a.abstained);
 
+    // Sentences that are not answers: a declined answer's closest ones,
+    // and supported sentences about something else. Each opens its page.
+    const notAnswers = (listId, boxId, items, why) => {
+      const list = $(listId);
+      clear(list);
+      for (const s of items || []) {
+        const li = el("li", {}, el("span", { class: "text", text: "“" + s.text + "”" }));
+        const c = (s.citations || [])[0];
+        if (c) {
+          li.append(el("span", { class: "meta", text: ` ${c.title}, ${pagesLabel(c)} (${c.doc_id})` }));
+          const open = el("button", { type: "button", class: "open-page" }, `Open ${pagesLabel(c)}`);
+          open.addEventListener("click", () => openPage(c));
+          li.append(" ", open);
+        }
+        li.append(el("span", { class: "reason", text: why(s) }));
+        list.append(li);
+      }
+      show($(boxId), (items || []).length > 0);
+    };
+    notAnswers("closest-list", "closest-box", a.closest, (s) => "Not an answer: " + s.why_not);
+    notAnswers("off-list", "off-box", a.off_question, (s) => "Why: " + (s.reason || "about something else"));
+
     notes.forEach((n, i) => {
       const c = n.c;
       const meta = [c.organisation, c.date, pagesLabel(c)].filter(Boolean).join(" · ");
