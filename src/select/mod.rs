@@ -67,8 +67,16 @@ pub fn prose_like(s: &str) -> bool {
         && !is_header_line(s)
 }
 
-/// Distribution and header lines ("cc: ...", "From: ...") are not statements.
+/// Distribution, header and signature lines ("cc: ...", "From: ...",
+/// "[signature] ...") and blocks of form fields ("Contract: ...",
+/// "Owner: ..." on lines of their own) are not statements.
 fn is_header_line(s: &str) -> bool {
+    static FIELD: std::sync::LazyLock<regex::Regex> = std::sync::LazyLock::new(|| {
+        regex::Regex::new(r"^\s*[A-Z][A-Za-z()/ -]{0,30}:\s").expect("static regex")
+    });
+    if s.lines().filter(|l| FIELD.is_match(l)).count() >= 2 {
+        return true;
+    }
     let head = s.trim_start().to_ascii_lowercase();
     [
         "cc:",
@@ -80,6 +88,11 @@ fn is_header_line(s: &str) -> bool {
         "date:",
         "sent:",
         "attachments:",
+        "[signature]",
+        "signed:",
+        "prepared for:",
+        "prepared by:",
+        "approved by:",
     ]
     .iter()
     .any(|k| head.starts_with(k))
@@ -344,6 +357,12 @@ mod tests {
             "cc: Chair, Public Accounts Committee, Deputy Minister"
         ));
         assert!(!prose_like("BRINDLEMOOR AMENDMENT No. 4 NEW RAMP"));
+        assert!(!prose_like(
+            "Contract: MPW-C-2019-017 - Pier 3 rebuild\nOwner: the Province, as represented by the Minister\nAmendment date: 9 February 2024"
+        ));
+        assert!(!prose_like(
+            "[signature] Odile Farrant Deputy Minister of Public Works"
+        ));
         assert!(prose_like(
             "The board approved the amendment on 3 June 2020."
         ));
