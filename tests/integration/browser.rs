@@ -313,15 +313,28 @@ fn browser_asks_reads_the_page_toggles_struck_downloads_and_stays_inert() {
     let question =
         "On what date did the rebuilt Aubrel Bay Ferry Terminal reopen to ferry traffic?";
     b.ask(question);
-    let first = b.text("#answer li.verified");
-    assert!(first.contains("22 April 2024"), "{first}");
-    assert!(first.contains("[1]"), "footnote marker: {first}");
-    let source = b.text("#sources li");
+    // The verified sentence that gives the reopening date (the answer may
+    // open with another dated sentence), and its footnote.
+    let at = b.js(
+        "const li = [...document.querySelectorAll('#answer li.verified')];
+         const i = li.findIndex((e) => e.textContent.includes('22 April 2024'));
+         return i < 0 ? null : [i + 1, Number(li[i].querySelector('button.fn').dataset.note)]",
+        json!([]),
+    );
+    let (nth, note) = (at[0].as_u64().unwrap(), at[1].as_u64().unwrap());
+    let sentence = format!("#answer li.verified:nth-of-type({nth})");
+    let dated = b.text(&sentence);
+    assert!(dated.contains("22 April 2024"), "{dated}");
+    assert!(
+        dated.contains(&format!("[{note}]")),
+        "footnote marker: {dated}"
+    );
+    let source = b.text(&format!("#source-{note}"));
     assert!(source.contains("p. 1"), "page reference: {source}");
-    let quote = b.text("#sources li blockquote");
+    let quote = b.text(&format!("#source-{note} blockquote"));
 
     // The page view, opened from the footnote with the Enter key.
-    b.keys("#answer li.verified button.fn", ENTER);
+    b.keys(&format!("{sentence} button.fn"), ENTER);
     let marked = b.wait(
         "the page view",
         "const m = document.querySelector('#page-text mark');
