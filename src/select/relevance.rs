@@ -196,35 +196,9 @@ fn labels(s: &str) -> Vec<(String, String)> {
         Regex::new(r"\b([A-Z][a-z]{2,})\s+(?:No\.?\s*)?(\d{1,4}[A-Z]?|[A-H])\b")
             .expect("static regex")
     });
-    const MONTHS: &[&str] = &[
-        "January",
-        "February",
-        "March",
-        "April",
-        "May",
-        "June",
-        "July",
-        "August",
-        "September",
-        "October",
-        "November",
-        "December",
-        "Jan",
-        "Feb",
-        "Mar",
-        "Apr",
-        "Jun",
-        "Jul",
-        "Aug",
-        "Sep",
-        "Sept",
-        "Oct",
-        "Nov",
-        "Dec",
-    ];
     LABEL
         .captures_iter(s)
-        .filter(|c| !MONTHS.contains(&&c[1]))
+        .filter(|c| crate::verify::rules::month_num(&c[1]).is_none())
         // A four-digit "label" after a word is a year ("Budget 2021"), not a label.
         .filter(|c| !(c[2].len() == 4 && c[2].chars().all(|ch| ch.is_ascii_digit())))
         .map(|c| (c[1].to_string(), c[2].to_string()))
