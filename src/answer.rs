@@ -595,7 +595,7 @@ fn closest_sentences(
                 selection.threshold * 100.0
             )
         } else {
-            "likely, but not drafted into the answer".into()
+            "likely enough, but the drafter did not use it".into()
         };
         out.push(ClosestSentence {
             text: c.text.clone(),
@@ -650,7 +650,6 @@ pub fn selection_vectors(
     let ids: Vec<ChunkId> = retrieved.iter().map(|r| r.chunk.id).collect();
     let passages = index.store.chunk_vectors(&model, &ids)?;
     Ok(Vectors {
-        model,
         question,
         texts,
         passages,

@@ -1053,7 +1053,15 @@ pub fn run() -> Result<ExitCode> {
             let idx = open_index(&index.index, &choice, &opts)?;
             let cfg = ExtractiveConfig {
                 max_sentences,
-                min_score,
+                ..Default::default()
+            };
+            if let Some(p) = min_score
+                && !(0.0..=1.0).contains(&p)
+            {
+                bail!("--min-score is a probability: give a number from 0 to 1 (got {p})");
+            }
+            let selector = onrecord::select::Selector {
+                min_probability: min_score,
                 ..Default::default()
             };
             let draft = draft.with_settings(&onrecord::config::Config::load()?)?;
@@ -1062,13 +1070,19 @@ pub fn run() -> Result<ExitCode> {
                     &idx,
                     &question,
                     (&filters.resolve(), k),
-                    cfg,
+                    (cfg, &selector),
                     &draft,
                     judge.as_ref(),
                     json,
                 )?
             } else {
-                ask_one(&idx, &question, &filters.resolve(), k, cfg, judge.as_ref())?
+                ask_one(
+                    &idx,
+                    &question,
+                    (&filters.resolve(), k),
+                    (cfg, &selector),
+                    judge.as_ref(),
+                )?
             };
             // The answer stands even when the log cannot take it (a
             // read-only index, say); the reader is told.
@@ -2099,20 +2113,24 @@ fn cmd_models_list(choice: &EmbedderChoice, json: bool) -> Result<ExitCode> {
 fn ask_one(
     idx: &Index,
     question: &str,
-    filters: &Filters,
-    k: usize,
-    cfg: ExtractiveConfig,
+    (filters, k): (&Filters, usize),
+    (cfg, selector): (ExtractiveConfig, &onrecord::select::Selector),
     judge: &dyn Judge,
 ) -> Result<AnswerRecord> {
     let drafter = Extractive::new(cfg);
-    Ok(answer::ask(
+    Ok(answer::ask_with(
         idx,
         question,
-        filters,
-        k,
-        &drafter,
-        serde_json::to_value(cfg)?,
-        judge,
+        answer::AskPlan {
+            filters,
+            k,
+            drafter: &drafter,
+            drafter_settings: serde_json::to_value(cfg)?,
+            judge,
+            fallback: None,
+            rewrite: None,
+            selector: Some(selector),
+        },
     )?)
 }
 
@@ -2123,7 +2141,7 @@ fn ask_with_model(
     idx: &Index,
     question: &str,
     (filters, k): (&Filters, usize),
-    cfg: ExtractiveConfig,
+    (cfg, selector): (ExtractiveConfig, &onrecord::select::Selector),
     args: &DraftArgs,
     judge: &dyn Judge,
     json: bool,
@@ -2167,7 +2185,7 @@ fn ask_with_model(
             judge,
             fallback: Some(&extractive),
             rewrite: args.rewrite.then_some(model.as_ref()),
-            selector: None,
+            selector: Some(selector),
         },
     )?;
     if show && a.draft.is_some() {
@@ -2698,13 +2716,13 @@ fn cmd_demo(
     )?;
     drop(err);
     let mut out = std::io::stdout().lock();
+    let selector = onrecord::select::Selector::default();
     for q in onrecord::demo::SAMPLE_QUESTIONS {
         let a = ask_one(
             &idx,
             q,
-            &Filters::default(),
-            10,
-            ExtractiveConfig::default(),
+            (&Filters::default(), 10),
+            (ExtractiveConfig::default(), &selector),
             &RulesJudge::default(),
         )?;
         idx.store.log_answer(&a)?;

@@ -40,12 +40,9 @@ pub trait Drafter {
 /// Settings of the extractive drafter.
 #[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
 pub struct ExtractiveConfig {
-    /// Most sentences in an answer.
+    /// Most sentences in an answer. (The probability an answer needs is
+    /// the selection's threshold: `Selector::min_probability` changes it.)
     pub max_sentences: usize,
-    /// Answer only with sentences at least this likely to answer (0..1);
-    /// `None`: the selector's calibrated threshold.
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub min_score: Option<f32>,
     /// MMR trade-off between relevance (1.0) and diversity (0.0).
     pub lambda: f32,
     /// Most sentences set aside by the relevance check that are listed.
@@ -56,7 +53,6 @@ impl Default for ExtractiveConfig {
     fn default() -> Self {
         ExtractiveConfig {
             max_sentences: 3,
-            min_score: None,
             lambda: 0.7,
             max_set_aside: 3,
         }
@@ -112,11 +108,11 @@ pub fn decline_reason(sel: &Selection, retrieved: usize) -> String {
         AnswerKind::Any => None,
     };
     if let Some(k) = kind {
-        let question = "";
+        // Any such fact counts here, even one the question gives.
         let stating = sel
             .candidates
             .iter()
-            .filter(|c| sel.kind.satisfied_by(&c.raw, question))
+            .filter(|c| sel.kind.satisfied_by(&c.raw, ""))
             .count();
         if stating == 0 {
             reason.push_str(&format!(
@@ -160,7 +156,7 @@ impl Drafter for Extractive {
                 &own
             }
         };
-        let threshold = self.cfg.min_score.unwrap_or(sel.threshold);
+        let threshold = sel.threshold;
         let likely: Vec<&Candidate> = sel
             .candidates
             .iter()
@@ -175,11 +171,9 @@ impl Drafter for Extractive {
             .take(self.cfg.max_set_aside)
             .collect();
         if likely.is_empty() {
-            let mut shown = sel.clone();
-            shown.threshold = threshold;
             return Ok(Draft {
                 sentences: vec![],
-                abstain: Some(decline_reason(&shown, req.retrieved.len())),
+                abstain: Some(decline_reason(sel, req.retrieved.len())),
                 model: None,
                 set_aside,
             });

@@ -20,6 +20,7 @@ use crate::answer::{AnswerRecord, AskPlan, CAUTION, ask_with};
 use crate::draft::{Drafter, Extractive, ExtractiveConfig, ModelDraftConfig, ModelDrafter};
 use crate::error::{Error, Result};
 use crate::retrieve::{Index, RetrieverKind, SearchOptions};
+use crate::select::Selector;
 use crate::types::Filters;
 use crate::verify::{Evidence, Judge, JudgeKind, Verdict};
 use serde::{Deserialize, Serialize};
@@ -691,6 +692,8 @@ pub struct Prepared {
     pub drafter: Box<dyn Drafter>,
     pub settings: serde_json::Value,
     pub fallback: Option<Extractive>,
+    /// Scores the candidate sentences, with the configuration's `min_score`.
+    pub selector: Selector,
     pub judge: Box<dyn Judge>,
     pub citation_judge: Box<dyn Judge>,
 }
@@ -701,9 +704,18 @@ pub fn prepare(config: EvalConfig, file: String) -> Result<Prepared> {
     if let Some(n) = config.drafting.max_sentences {
         ext.max_sentences = n;
     }
-    if let Some(s) = config.drafting.min_score {
-        ext.min_score = Some(s);
+    if let Some(p) = config.drafting.min_score
+        && !(0.0..=1.0).contains(&p)
+    {
+        return Err(Error::Invalid(format!(
+            "configuration `{}`: min_score is a probability, from 0 to 1 (got {p})",
+            config.name
+        )));
     }
+    let selector = Selector {
+        min_probability: config.drafting.min_score,
+        ..Selector::default()
+    };
     let kind = config.drafting.drafter.as_deref().unwrap_or("extractive");
     let (drafter, settings, fallback): (Box<dyn Drafter>, serde_json::Value, _) = match kind {
         "extractive" => (
@@ -767,6 +779,7 @@ pub fn prepare(config: EvalConfig, file: String) -> Result<Prepared> {
         drafter,
         settings,
         fallback,
+        selector,
     })
 }
 
@@ -810,7 +823,7 @@ pub fn run_config(
                 judge: p.judge.as_ref(),
                 fallback: p.fallback.as_ref().map(|f| f as &dyn Drafter),
                 rewrite: None,
-                selector: None,
+                selector: Some(&p.selector),
             },
         )
         .map_err(|e| {

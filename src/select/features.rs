@@ -131,11 +131,6 @@ impl QuestionInfo {
             terms: crate::text::terms(question).into_iter().collect(),
         }
     }
-
-    /// Whether a term of the question's content carries weight.
-    pub fn has_term(&self, t: &str) -> bool {
-        self.weights.contains_key(t)
-    }
 }
 
 /// The passage a candidate comes from: a retrieved chunk, a WikiQA

@@ -2,9 +2,10 @@
 //! candidate; a small learned model scores how likely each one is to answer
 //! the question, from its meaning (embedding cosines, when a model is
 //! loaded), its words (IDF-weighted overlap in the sentence and its
-//! passage), the kind of fact asked for, and where it sits. A calibrated
-//! probability and a threshold chosen on open data (WikiQA answer
-//! triggering) decide between answering and declining; the relevance check
+//! passage), the kind of fact asked for, its length and its passage's
+//! rank. A calibrated probability and a threshold chosen on open data
+//! (WikiQA and SQuAD answer triggering) decide between answering and
+//! declining; the relevance check
 //! sets aside sentences about another year, a failed proposal, or another
 //! numbered thing.
 //!
@@ -103,7 +104,6 @@ fn is_header_line(s: &str) -> bool {
 /// their text) and passages (by chunk).
 #[derive(Debug, Clone, Default)]
 pub struct Vectors {
-    pub model: String,
     pub question: Vec<f32>,
     pub texts: HashMap<String, Vec<f32>>,
     pub passages: HashMap<ChunkId, Vec<f32>>,
@@ -152,14 +152,7 @@ pub struct Selection {
 }
 
 impl Selection {
-    /// Candidates that answer: at or above the threshold, not set aside.
-    pub fn answers(&self) -> impl Iterator<Item = &Candidate> {
-        self.candidates
-            .iter()
-            .filter(|c| c.probability >= self.threshold && c.off_question.is_none())
-    }
-
-    /// The likeliest candidate that is not set aside.
+    /// The best-ranked candidate that is not set aside.
     pub fn best(&self) -> Option<&Candidate> {
         self.candidates.iter().find(|c| c.off_question.is_none())
     }

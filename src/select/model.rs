@@ -63,7 +63,7 @@ pub struct SelectorModel {
 impl SelectorModel {
     /// The feature set this model reads.
     pub fn set(&self) -> FeatureSet {
-        if self.features.len() == FeatureSet::Semantic.names().len() {
+        if self.features == FeatureSet::Semantic.names() {
             FeatureSet::Semantic
         } else {
             FeatureSet::Lexical
@@ -185,10 +185,13 @@ impl SelectorWeights {
         Ok(w)
     }
 
-    /// The weights compiled into this build.
+    /// The weights compiled into this build, parsed once per process.
     pub fn bundled() -> SelectorWeights {
-        Self::parse(BUNDLED, Path::new("src/select/selector.json"))
-            .expect("the bundled selector weights match this build (checked by a unit test)")
+        static PARSED: std::sync::LazyLock<SelectorWeights> = std::sync::LazyLock::new(|| {
+            SelectorWeights::parse(BUNDLED, Path::new("src/select/selector.json"))
+                .expect("the bundled selector weights match this build (checked by a unit test)")
+        });
+        PARSED.clone()
     }
 
     pub fn from_file(path: &Path) -> Result<SelectorWeights> {

@@ -229,9 +229,9 @@ mod tests {
     fn a_motion_is_read_with_its_outcome() {
         let q = "How much did the reopening celebration end up costing?";
         let motion = "Moved by Moulinaux, seconded by Sundaresh, that the board approve a public celebration with a budget not to exceed $35,000.";
-        let at = |after| {
+        let ask = |question, after| {
             check(
-                q,
+                question,
                 motion,
                 Context {
                     date: None,
@@ -239,6 +239,7 @@ mod tests {
                 },
             )
         };
+        let at = |after| ask(q, after);
         assert!(
             at("DEFEATED. In favour: Moulinaux")
                 .unwrap()
@@ -248,28 +249,8 @@ mod tests {
         // "in the end" is still not answered by a motion.
         assert!(at(" CARRIED.").unwrap().contains("what was proposed"));
         let plain = "How much was the reopening celebration's budget?";
-        assert!(
-            check(
-                plain,
-                motion,
-                Context {
-                    date: None,
-                    after: Some(" CARRIED.")
-                }
-            )
-            .is_none()
-        );
-        assert!(
-            check(
-                plain,
-                motion,
-                Context {
-                    date: None,
-                    after: Some("DEFEATED.")
-                }
-            )
-            .is_some()
-        );
+        assert!(ask(plain, " CARRIED.").is_none());
+        assert!(ask(plain, "DEFEATED.").is_some());
         // A question about the motion itself takes it as an answer.
         assert!(
             check(
