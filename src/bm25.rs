@@ -14,7 +14,7 @@ use crate::text::{ANALYZER, analyzer, terms};
 use crate::types::{ChunkId, DocId};
 use std::path::{Path, PathBuf};
 use tantivy::collector::TopDocs;
-use tantivy::query::{BooleanQuery, Occur, Query, TermQuery, TermSetQuery};
+use tantivy::query::{BooleanQuery, BoostQuery, Occur, Query, TermQuery, TermSetQuery};
 use tantivy::schema::{
     FAST, Field, INDEXED, IndexRecordOption, STRING, Schema, TextFieldIndexing, TextOptions,
 };
@@ -173,19 +173,36 @@ impl Bm25Index {
     /// Top `k` chunks for `query`; `allowed` restricts the documents (an
     /// empty slice allows none; `None` allows all).
     pub fn search(&self, query: &str, allowed: Option<&[DocId]>, k: usize) -> Result<Vec<Hit>> {
-        let qterms = terms(query);
+        // A repeated term counts again, as query term frequency does.
+        let weighted: Vec<(String, f32)> = terms(query).into_iter().map(|t| (t, 1.0)).collect();
+        self.search_weighted(&weighted, allowed, k)
+    }
+
+    /// Top `k` chunks for analysed terms, each term's BM25 score scaled by
+    /// its weight (the expanded query of pseudo-relevance feedback).
+    pub fn search_weighted(
+        &self,
+        qterms: &[(String, f32)],
+        allowed: Option<&[DocId]>,
+        k: usize,
+    ) -> Result<Vec<Hit>> {
         if qterms.is_empty() || k == 0 || allowed.is_some_and(|a| a.is_empty()) {
             return Ok(Vec::new());
         }
         // Each query term is an optional clause, so scores add up as in plain
-        // BM25; a repeated term counts again, as query term frequency does.
+        // BM25.
         let clauses: Vec<(Occur, Box<dyn Query>)> = qterms
             .iter()
-            .map(|t| {
-                let q: Box<dyn Query> = Box::new(TermQuery::new(
+            .map(|(t, w)| {
+                let term: Box<dyn Query> = Box::new(TermQuery::new(
                     Term::from_field_text(self.body, t),
                     IndexRecordOption::WithFreqs,
                 ));
+                let q: Box<dyn Query> = if *w == 1.0 {
+                    term
+                } else {
+                    Box::new(BoostQuery::new(term, *w))
+                };
                 (Occur::Should, q)
             })
             .collect();

@@ -254,6 +254,17 @@ struct RetrievalArgs {
     /// Candidates taken from each retriever before fusing.
     #[arg(long, default_value_t = 100, value_name = "N")]
     depth: usize,
+    /// Expand the BM25 query with the words of its own best passages
+    /// (pseudo-relevance feedback, RM3: 10 passages, 10 terms, half the
+    /// weight kept on the question's words). Can find passages worded
+    /// differently from the question; can also drift off the subject.
+    #[arg(long)]
+    feedback: bool,
+    /// Find chunks by their best sentence as well as by their whole text
+    /// (the sentence vectors ingest stores for answer selection; the first
+    /// search builds their graph in memory).
+    #[arg(long)]
+    sentence_vectors: bool,
 }
 
 impl RetrievalArgs {
@@ -277,6 +288,8 @@ impl RetrievalArgs {
             },
             rrf_k: self.rrf_k,
             depth: self.depth.max(1),
+            feedback: self.feedback.then(onrecord::feedback::Feedback::default),
+            sentences: self.sentence_vectors,
         })
     }
 }
@@ -735,6 +748,16 @@ struct FusionArgs {
     /// Weight of the embedding ranking in the fused score.
     #[arg(long, default_value_t = 1.0, value_name = "W")]
     dense_weight: f64,
+    /// Expand the BM25 query with pseudo-relevance feedback (RM3).
+    #[arg(long)]
+    feedback: bool,
+    /// Dense search by each chunk's best sentence too (embeds the
+    /// collection's sentences, which takes several times longer).
+    #[arg(long)]
+    sentence_vectors: bool,
+    /// Keep the embeddings in this file, so a second run embeds nothing.
+    #[arg(long, value_name = "FILE")]
+    cache: Option<PathBuf>,
 }
 
 #[derive(Subcommand, Debug)]
@@ -1305,11 +1328,25 @@ pub fn run() -> Result<ExitCode> {
                 overlap_tokens: chunk_overlap.min(chunk_tokens - 1),
             };
             let kinds: Vec<RetrieverKind> = retriever.iter().map(|r| r.kind()).collect();
-            let weights = Weights {
-                bm25: fusion.bm25_weight,
-                dense: fusion.dense_weight,
+            let base = SearchOptions {
+                weights: Weights {
+                    bm25: fusion.bm25_weight,
+                    dense: fusion.dense_weight,
+                },
+                feedback: fusion.feedback.then(onrecord::feedback::Feedback::default),
+                sentences: fusion.sentence_vectors,
+                ..Default::default()
             };
-            cmd_eval_retrieval(&beir, &split, &choice, &kinds, weights, chunk, json)
+            cmd_eval_retrieval(
+                &beir,
+                &split,
+                &choice,
+                &kinds,
+                base,
+                chunk,
+                fusion.cache.as_deref(),
+                json,
+            )
         }
     }
 }
@@ -1910,13 +1947,15 @@ fn cmd_eval_abstention(squad: &std::path::Path, cap: usize, json: bool) -> Resul
     Ok(ExitCode::SUCCESS)
 }
 
+#[allow(clippy::too_many_arguments)]
 fn cmd_eval_retrieval(
     beir: &std::path::Path,
     split: &str,
     choice: &EmbedderChoice,
     kinds: &[RetrieverKind],
-    weights: Weights,
+    base: SearchOptions,
     chunk: onrecord::chunk::ChunkConfig,
+    cache: Option<&std::path::Path>,
     json: bool,
 ) -> Result<ExitCode> {
     let tmp = tempfile::tempdir().context("creating a temporary index folder")?;
@@ -1926,6 +1965,12 @@ fn cmd_eval_retrieval(
     } else {
         load_embedder(choice)?
     };
+    let embedder: Option<Arc<dyn Embedder>> = match (embedder, cache) {
+        (Some(m), Some(c)) => Some(Arc::new(onrecord::embed::cache::CachedEmbedder::open(
+            m, c,
+        )?)),
+        (m, _) => m,
+    };
     let r = onrecord::eval::beir::run_all(
         beir,
         split,
@@ -1933,7 +1978,7 @@ fn cmd_eval_retrieval(
         progress,
         embedder,
         kinds,
-        weights,
+        base,
         chunk,
     )?;
     for n in &r.notes {

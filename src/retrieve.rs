@@ -48,6 +48,11 @@ pub struct SearchOptions {
     pub rrf_k: f64,
     /// Candidates taken from each retriever before fusing (at least k).
     pub depth: usize,
+    /// Pseudo-relevance feedback (RM3) for the BM25 ranking; off by default.
+    pub feedback: Option<crate::feedback::Feedback>,
+    /// Dense search by each chunk's best sentence as well as by its whole
+    /// text (the stored sentence vectors); off by default.
+    pub sentences: bool,
 }
 
 impl Default for SearchOptions {
@@ -57,6 +62,8 @@ impl Default for SearchOptions {
             weights: Weights::default(),
             rrf_k: RRF_K,
             depth: 100,
+            feedback: None,
+            sentences: false,
         }
     }
 }
@@ -103,6 +110,8 @@ pub struct Index {
     pub notes: Vec<String>,
     /// What `search` uses.
     pub options: SearchOptions,
+    /// The sentence vector graph, built on first use.
+    units: std::sync::OnceLock<crate::units::UnitIndex>,
 }
 
 impl Index {
@@ -144,6 +153,7 @@ impl Index {
             vectors,
             notes,
             options: SearchOptions::default(),
+            units: std::sync::OnceLock::new(),
         })
     }
 
@@ -202,8 +212,8 @@ impl Index {
         let depth = opts.depth.max(k);
         let bm25 = match kind {
             RetrieverKind::Dense => Vec::new(),
-            RetrieverKind::Bm25 => self.bm25.search(query, allowed.as_deref(), k)?,
-            RetrieverKind::Hybrid => self.bm25.search(query, allowed.as_deref(), depth)?,
+            RetrieverKind::Bm25 => self.bm25_search(query, allowed.as_deref(), k, opts)?,
+            RetrieverKind::Hybrid => self.bm25_search(query, allowed.as_deref(), depth, opts)?,
         };
         let dense = match kind {
             RetrieverKind::Bm25 => Vec::new(),
@@ -216,7 +226,11 @@ impl Index {
                 } else {
                     depth
                 };
-                self.dense_search(qv, allowed.as_deref(), n)?
+                if opts.sentences {
+                    self.dense_search_sentences(qv, allowed.as_deref(), n)?
+                } else {
+                    self.dense_search(qv, allowed.as_deref(), n)?
+                }
             }
         };
         let bm25_ids: Vec<u64> = bm25.iter().map(|h| h.chunk_id.0).collect();
@@ -283,6 +297,42 @@ impl Index {
         Ok(out)
     }
 
+    /// The BM25 ranking, with RM3 feedback when `opts` asks for it: the
+    /// first pass's passages (title and text) expand the query.
+    fn bm25_search(
+        &self,
+        query: &str,
+        allowed: Option<&[crate::types::DocId]>,
+        k: usize,
+        opts: &SearchOptions,
+    ) -> Result<Vec<crate::bm25::Hit>> {
+        let Some(fb) = opts.feedback else {
+            return self.bm25.search(query, allowed, k);
+        };
+        let first = self.bm25.search(query, allowed, fb.docs)?;
+        if first.is_empty() {
+            return Ok(first);
+        }
+        let ids: Vec<ChunkId> = first.iter().map(|h| h.chunk_id).collect();
+        let chunks: HashMap<ChunkId, StoredChunk> = self
+            .store
+            .chunks(&ids)?
+            .into_iter()
+            .map(|c| (c.id, c))
+            .collect();
+        let texts: Vec<(String, f32)> = first
+            .iter()
+            .filter_map(|h| {
+                chunks
+                    .get(&h.chunk_id)
+                    .map(|c| (format!("{}\n{}", c.title, c.text), h.score))
+            })
+            .collect();
+        let passages: Vec<(&str, f32)> = texts.iter().map(|(t, s)| (t.as_str(), *s)).collect();
+        let expanded = crate::feedback::expand(query, &passages, &fb);
+        self.bm25.search_weighted(&expanded, allowed, k)
+    }
+
     /// The query's vector.
     pub fn embed_query(&self, query: &str) -> Result<Vec<f32>> {
         let e = self
@@ -302,7 +352,15 @@ impl Index {
         let Some(v) = &self.vectors else {
             return Ok(Vec::new());
         };
-        let allowed: Option<HashSet<u64>> = match allowed_docs {
+        v.search(qv, self.allowed_chunks(allowed_docs)?.as_ref(), k)
+    }
+
+    /// The chunk ids of the allowed documents (`None`: all).
+    fn allowed_chunks(
+        &self,
+        allowed_docs: Option<&[crate::types::DocId]>,
+    ) -> Result<Option<HashSet<u64>>> {
+        Ok(match allowed_docs {
             Some(docs) => Some(
                 self.store
                     .chunk_ids_of(docs)?
@@ -311,8 +369,31 @@ impl Index {
                     .collect(),
             ),
             None => None,
+        })
+    }
+
+    /// Nearest chunks by whole text or by best sentence, whichever is
+    /// nearer.
+    pub fn dense_search_sentences(
+        &self,
+        qv: &[f32],
+        allowed_docs: Option<&[crate::types::DocId]>,
+        k: usize,
+    ) -> Result<Vec<crate::vectors::Neighbour>> {
+        let (Some(e), Some(v)) = (&self.embedder, &self.vectors) else {
+            return Ok(Vec::new());
         };
-        v.search(qv, allowed.as_ref(), k)
+        let allowed = self.allowed_chunks(allowed_docs)?;
+        let whole = v.search(qv, allowed.as_ref(), k)?;
+        let units = match self.units.get() {
+            Some(u) => u,
+            None => {
+                let built = crate::units::UnitIndex::build(&self.store, e.id(), e.dim())?;
+                self.units.get_or_init(|| built)
+            }
+        };
+        let best = units.search(qv, allowed.as_ref(), k)?;
+        Ok(crate::units::merge_best(&[&whole, &best], k))
     }
 
     pub fn query_terms(&self, query: &str) -> Result<Vec<QueryTerm>> {

@@ -905,14 +905,15 @@ impl Store {
         Ok(out)
     }
 
-    /// The highest chunk id whose candidate sentences have vectors for
-    /// `model` (0 when none): sentence vectors are added in chunk order.
+    /// The highest chunk id whose candidate sentences (under the current
+    /// candidate rules) have vectors for `model` (0 when none): sentence
+    /// vectors are added in chunk order.
     pub fn sentences_embedded_through(&self, model: &str) -> Result<ChunkId> {
         let v: Option<String> = self
             .conn
             .query_row(
                 "SELECT value FROM meta WHERE key = ?1",
-                params![format!("sentences_embedded:{model}")],
+                params![sentences_mark(model)],
                 |r| r.get(0),
             )
             .optional()
@@ -928,7 +929,7 @@ impl Store {
         items: &[(String, Vec<f32>)],
         through: ChunkId,
     ) -> Result<()> {
-        let mark = (format!("sentences_embedded:{model}"), through.0.to_string());
+        let mark = (sentences_mark(model), through.0.to_string());
         self.put_embeddings_marked(model, items, Some(mark))
     }
 
@@ -1208,4 +1209,13 @@ fn row_to_chunk(r: &rusqlite::Row<'_>) -> rusqlite::Result<StoredChunk> {
         text: r.get(10)?,
         hash: r.get(11)?,
     })
+}
+
+/// The meta key recording how far candidate sentences are embedded for
+/// `model`, under the current candidate rules.
+fn sentences_mark(model: &str) -> String {
+    format!(
+        "sentences_embedded:r{}:{model}",
+        crate::select::CANDIDATE_RULES
+    )
 }

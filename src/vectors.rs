@@ -100,6 +100,10 @@ pub struct VectorIndex {
     pub last_sync: SyncReport,
     /// A filter leaving at most this many chunks is scored exactly.
     pub exact_below: usize,
+    /// Score every search exactly, never through the graph (whose build
+    /// runs on several threads, so its answers can differ from one build
+    /// to the next): for training, which must give the same weights twice.
+    pub exact_always: bool,
 }
 
 /// A nearest neighbour: chunk id and cosine similarity.
@@ -122,7 +126,7 @@ fn file_stem(model: &str) -> String {
         .collect()
 }
 
-fn new_index(dim: usize, scalar: Scalar) -> Result<Index> {
+pub(crate) fn new_index(dim: usize, scalar: Scalar) -> Result<Index> {
     Index::new(&IndexOptions {
         dimensions: dim,
         metric: MetricKind::Cos,
@@ -180,6 +184,7 @@ impl VectorIndex {
                     state: st,
                     last_sync: SyncReport::default(),
                     exact_below: EXACT_BELOW,
+                    exact_always: false,
                 };
                 vi.catch_up(store)?;
                 return Ok(vi);
@@ -221,6 +226,7 @@ impl VectorIndex {
                 ..Default::default()
             },
             exact_below: EXACT_BELOW,
+            exact_always: false,
         };
         let mut pending = Vec::new();
         store.for_each_embedded_chunk(model, 0, 0, |id, v| {
@@ -400,6 +406,7 @@ impl VectorIndex {
                 .index
                 .filtered_search(query, k, |key| set.contains(&key))
                 .map_err(|e| self.err(e))?,
+            None if self.exact_always => return self.exact(query, k),
             None => self.index.search(query, k).map_err(|e| self.err(e))?,
         };
         Ok(matches

@@ -104,6 +104,7 @@ pub fn decline_reason(sel: &Selection, retrieved: usize) -> String {
         AnswerKind::Money => Some("an amount of money"),
         AnswerKind::Quantity => Some("a number"),
         AnswerKind::Date => Some("a date"),
+        AnswerKind::Time => Some("a time of day"),
         AnswerKind::Name => Some("a name"),
         AnswerKind::Any => None,
     };
@@ -181,12 +182,15 @@ impl Drafter for Extractive {
         // The best-ranked answer first. Then maximal marginal relevance
         // over the other likely sentences and those the rule-based score
         // rates highly (the question's own words, in the records' wording),
-        // so extra sentences add something.
+        // so extra sentences add something. A line of a block (a header
+        // field, a line item) follows only when it is likely itself: its
+        // words are mostly names and labels, which the rule-based score
+        // over-rates.
         let pool: Vec<&Candidate> = sel
             .candidates
             .iter()
             .filter(|c| c.off_question.is_none())
-            .filter(|c| c.probability >= threshold || c.rule_score >= RULE_FLOOR)
+            .filter(|c| c.probability >= threshold || (!c.line && c.rule_score >= RULE_FLOOR))
             .collect();
         let relevance = |c: &Candidate| c.probability.max(c.rule_score);
         let mut chosen: Vec<&Candidate> = vec![likely[0]];

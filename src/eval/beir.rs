@@ -8,7 +8,6 @@ use super::metrics::{Qrels, ndcg_at, quantile, recall_at, rr_at, trec_order};
 use crate::chunk::ChunkConfig;
 use crate::embed::Embedder;
 use crate::error::{Error, Result};
-use crate::fuse::Weights;
 use crate::ingest::{MemDoc, ingest_docs};
 use crate::retrieve::{Index, RetrieverKind, SearchOptions};
 use crate::types::{DocId, DocMeta, Filters};
@@ -149,7 +148,7 @@ pub fn run(dir: &Path, split: &str, index_dir: &Path, progress: bool) -> Result<
         progress,
         None,
         &[RetrieverKind::Bm25],
-        Weights::default(),
+        SearchOptions::default(),
         ChunkConfig::default(),
     )?;
     Ok(out.runs.remove(0))
@@ -200,7 +199,7 @@ pub fn run_all(
     progress: bool,
     embedder: Option<Arc<dyn Embedder>>,
     kinds: &[RetrieverKind],
-    weights: Weights,
+    base: SearchOptions,
     chunk: ChunkConfig,
 ) -> Result<BeirRun> {
     let (qrels, queries, docs) = load(dir, split)?;
@@ -209,8 +208,9 @@ pub fn run_all(
     let mut notes = Vec::new();
     let mut vreport = None;
     if let Some(e) = &embedder {
-        // Retrieval only: the answer selector's sentence vectors are not needed.
-        let (er, _) = crate::vectors::update_with(index_dir, e.as_ref(), progress, false)?;
+        // Retrieval only: the answer selector's sentence vectors are needed
+        // only to search by sentence.
+        let (er, _) = crate::vectors::update_with(index_dir, e.as_ref(), progress, base.sentences)?;
         vreport = Some(VectorReport {
             embedder: e.id().to_owned(),
             chunks: report.chunks,
@@ -248,8 +248,7 @@ pub fn run_all(
     for kind in kinds {
         let opts = SearchOptions {
             retriever: Some(kind),
-            weights,
-            ..Default::default()
+            ..base
         };
         if index.effective(&opts) != kind {
             notes.push(format!(

@@ -56,6 +56,12 @@ pub struct RetrievalSection {
     pub retriever: String,
     #[serde(default = "ten")]
     pub k: usize,
+    /// Pseudo-relevance feedback (RM3) for the BM25 ranking.
+    #[serde(default)]
+    pub feedback: bool,
+    /// Dense search by each chunk's best sentence as well.
+    #[serde(default)]
+    pub sentence_vectors: bool,
 }
 
 impl Default for RetrievalSection {
@@ -63,6 +69,8 @@ impl Default for RetrievalSection {
         RetrievalSection {
             retriever: bm25(),
             k: ten(),
+            feedback: false,
+            sentence_vectors: false,
         }
     }
 }
@@ -793,6 +801,12 @@ pub fn run_config(
     let kind = p.config.retriever_kind().map_err(Error::Invalid)?;
     index.options = SearchOptions {
         retriever: Some(kind),
+        feedback: p
+            .config
+            .retrieval
+            .feedback
+            .then(crate::feedback::Feedback::default),
+        sentences: p.config.retrieval.sentence_vectors,
         ..index.options
     };
     let k = p.config.retrieval.k;

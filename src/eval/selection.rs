@@ -302,6 +302,10 @@ pub fn squad_retrieval(
         crate::vectors::update(work, e.as_ref(), progress)?;
     }
     let mut index = Index::open_with(work, embedder.clone())?;
+    // Exact dense search, so training gives the same weights every time.
+    if let Some(v) = index.vectors.as_mut() {
+        v.exact_always = true;
+    }
     index.options = SearchOptions {
         retriever: Some(if embedder.is_some() {
             RetrieverKind::Hybrid

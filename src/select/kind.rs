@@ -17,6 +17,9 @@ pub enum AnswerKind {
     Quantity,
     /// A date: the sentence must state a date or year the question does not.
     Date,
+    /// A time of day ("what time did the last ferry leave"): the sentence
+    /// must state a clock time the question does not.
+    Time,
     /// A person or an organisation ("who", "which company"): the sentence
     /// must name someone the question does not.
     Name,
@@ -53,6 +56,11 @@ impl AnswerKind {
         {
             return AnswerKind::Any;
         }
+        // A question that opens by asking who asks for a name, whatever
+        // "when" clause follows ("Who was minister when it was signed?").
+        if matches!(first, "who" | "whom" | "whose" | "who's") {
+            return AnswerKind::Name;
+        }
         const DATE: &[&str] = &[
             " when ",
             "what date",
@@ -64,6 +72,12 @@ impl AnswerKind {
             "what month",
             "which month",
         ];
+        // "What time did it leave", not "what time of year" or "what time
+        // period".
+        if has(&[" what time ", "which time "]) && !has(&["time of ", "time period", "time frame"])
+        {
+            return AnswerKind::Time;
+        }
         if has(DATE) {
             return AnswerKind::Date;
         }
@@ -145,6 +159,9 @@ impl AnswerKind {
         const QUANTITY: &[&str] = &[
             " how many ",
             " how long ",
+            " how late ",
+            " how early ",
+            " how soon ",
             " how far ",
             " how old ",
             " how often ",
@@ -205,16 +222,56 @@ impl AnswerKind {
             }
             AnswerKind::Money => fresh(money(sentence), money(question)),
             AnswerKind::Date => fresh(dates_and_years(sentence), dates_and_years(question)),
-            AnswerKind::Name => fresh(name_keys(sentence), name_keys(question)),
+            AnswerKind::Time => fresh(clock_times(sentence), clock_times(question)),
+            AnswerKind::Name => {
+                let mut asked = name_keys(question);
+                asked.extend(initialisms(question));
+                fresh(name_keys(sentence), asked)
+            }
         }
     }
 }
 
+/// The initials of every run of two to five words of `s`, lower-cased:
+/// a sentence's "HPU" is the question's "hydraulic power unit", not a new
+/// name.
+fn initialisms(s: &str) -> HashSet<String> {
+    let words: Vec<char> = s
+        .split(|c: char| !c.is_alphanumeric())
+        .filter_map(|w| w.chars().next())
+        .map(|c| c.to_ascii_lowercase())
+        .collect();
+    let mut out = HashSet::new();
+    for n in 2..=5 {
+        for w in words.windows(n) {
+            out.insert(w.iter().collect::<String>());
+        }
+    }
+    out
+}
+
 /// Capitalised names (people, organisations, places), lower-cased.
+/// `s` without the marker of a list item or numbered paragraph ("- ",
+/// "(b) ", "2. ", "8.2 ", quoted mail's "> "): the marker is neither a
+/// number stated nor the word before a name.
+fn unmarked(s: &str) -> std::borrow::Cow<'_, str> {
+    static MARKER: std::sync::LazyLock<regex::Regex> = std::sync::LazyLock::new(|| {
+        regex::Regex::new(
+            r"^(?:\s*(?:[-*\u{2022}>]|\(?[a-z]{1,3}\)|\(?\d{1,3}[.)]|\d{1,3}(?:\.\d{1,3})+\.?))+\s+",
+        )
+        .expect("static regex")
+    });
+    MARKER.replace(s, "")
+}
+
+/// A list item's marker does not make the next word a name: the item
+/// starts a sentence there.
 fn name_keys(s: &str) -> HashSet<String> {
-    crate::verify::names(s)
+    const PRONOUNS: &[&str] = &["you", "your", "my", "me", "us"];
+    crate::verify::names(&unmarked(s))
         .into_iter()
         .map(|n| n.to_lowercase())
+        .filter(|n| !PRONOUNS.contains(&n.as_str()))
         .collect()
 }
 
@@ -266,7 +323,7 @@ fn quantities(s: &str) -> HashSet<String> {
         "quarter",
         "third",
     ];
-    let (_, rest) = crate::verify::dates(s);
+    let (_, rest) = crate::verify::dates(&unmarked(s));
     let mut out: HashSet<String> = number_re()
         .find_iter(&rest)
         .filter(|m| {
@@ -317,6 +374,36 @@ fn money(s: &str) -> HashSet<String> {
         .collect()
 }
 
+/// Times of day: "23:10", "6.15 a.m.", "noon", as keys (digits only, or
+/// the word).
+fn clock_times(s: &str) -> HashSet<String> {
+    static CLOCK: std::sync::LazyLock<regex::Regex> = std::sync::LazyLock::new(|| {
+        regex::Regex::new(
+            r"(?i)\b(\d{1,2}):(\d{2})\b|\b(\d{1,2})(?:[.:](\d{2}))?\s?([ap])\.?m\b\.?|\b(noon|midnight|midday)\b",
+        )
+        .expect("static regex")
+    });
+    CLOCK
+        .captures_iter(s)
+        .map(|c| {
+            if let Some(w) = c.get(6) {
+                return w.as_str().to_lowercase();
+            }
+            match (c.get(1), c.get(2)) {
+                (Some(h), Some(m)) => {
+                    format!("{}:{}", h.as_str().trim_start_matches('0'), m.as_str())
+                }
+                _ => format!(
+                    "{}:{}{}",
+                    c.get(3).map_or("", |m| m.as_str()),
+                    c.get(4).map_or("00", |m| m.as_str()),
+                    c.get(5).map_or("", |m| m.as_str()).to_lowercase()
+                ),
+            }
+        })
+        .collect()
+}
+
 /// Dates (ISO keys) and four-digit years.
 fn dates_and_years(s: &str) -> HashSet<String> {
     static YEAR: std::sync::LazyLock<regex::Regex> = std::sync::LazyLock::new(|| {
@@ -348,6 +435,19 @@ mod tests {
                 AnswerKind::Quantity,
             ),
             ("When was the ramp closed?", AnswerKind::Date),
+            (
+                "Who was the minister when the contract was signed?",
+                AnswerKind::Name,
+            ),
+            (
+                "What time did the last ferry leave before the closure?",
+                AnswerKind::Time,
+            ),
+            ("What time of year is dredging allowed?", AnswerKind::Any),
+            (
+                "How late did the rebuilt terminal open, compared with the plan?",
+                AnswerKind::Quantity,
+            ),
             ("By what date was the work due?", AnswerKind::Date),
             ("Which option did the engineers recommend?", AnswerKind::Any),
             (
@@ -416,6 +516,52 @@ mod tests {
             (
                 "How many bids were received?",
                 "Four firms submitted bids.",
+                true,
+            ),
+            (
+                "What time did the last ferry leave Pier 3?",
+                "The last sailing from Pier 3 will leave for Vessane at 23:10 on Sunday, 1 May 2022.",
+                true,
+            ),
+            (
+                "How many change orders were approved?",
+                "8.2 The Owner's Representative may approve a Change Order on its own.",
+                false,
+            ),
+            (
+                "How many change orders were approved?",
+                "2. Eleven change orders were approved.",
+                true,
+            ),
+            (
+                "How many change orders were approved?",
+                "2. The Owner approved the change orders.",
+                false,
+            ),
+            (
+                "Who approved the change order?",
+                "- You were briefed that the change order was approved.",
+                false,
+            ),
+            // The question's own words, abbreviated, are not a new name.
+            (
+                "Which company made the hydraulic power unit that failed its test?",
+                "The hydraulic power unit (HPU) for the new ramp failed its factory pressure test.",
+                false,
+            ),
+            (
+                "Which company made the hydraulic power unit that failed its test?",
+                "The HPU was made by Varrowdene Hydraulics Ltd. and failed its factory test.",
+                true,
+            ),
+            (
+                "What time did the last ferry leave Pier 3?",
+                "The terminal will close to all ferry traffic from Monday, 2 May 2022.",
+                false,
+            ),
+            (
+                "What time did the first ferry leave?",
+                "The first ferry left at 6.15 a.m. with 40 cars.",
                 true,
             ),
             (

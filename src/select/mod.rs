@@ -33,17 +33,107 @@ use features::{PassageInfo, QuestionInfo, SentenceInfo};
 use std::collections::{HashMap, HashSet};
 use std::ops::Range;
 
+/// Which rules made the candidates. Ingest records, per embedding model,
+/// how far it has embedded the candidates under these rules; a change of
+/// rules makes the next ingest or reindex embed the new ones.
+pub const CANDIDATE_RULES: u32 = 2;
+
+/// What a candidate is: a prose sentence, or one line of a block of lines
+/// (a header field, a distribution line, a line item of a table).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Unit {
+    Sentence,
+    Line,
+}
+
 /// Sentences that can be quoted as an answer: prose of at least four
 /// terms, not a heading, table row, header line or page furniture. Ingest
 /// embeds exactly these, so selection finds their vectors stored.
 pub fn candidate_spans(text: &str) -> Vec<Range<usize>> {
-    sentence_spans(text)
-        .into_iter()
-        .filter(|r| {
-            let s = &text[r.clone()];
-            prose_like(s) && term_spans(s).len() >= 4
-        })
-        .collect()
+    candidate_units(text).into_iter().map(|(r, _)| r).collect()
+}
+
+/// [`candidate_spans`] with each one's unit. A block that is not prose
+/// (header fields, a distribution list, line items) is offered line by
+/// line: records state names, dates and amounts there ("To: Hon. A. B.,
+/// Minister of ...", "Surveyor: ...", "Extended site overheads, 18 weeks
+/// at $84,000 per week"), and such a line quotes as it stands.
+pub fn candidate_units(text: &str) -> Vec<(Range<usize>, Unit)> {
+    let mut out = Vec::new();
+    for r in sentence_spans(text) {
+        let s = &text[r.clone()];
+        if prose_like(s) && term_spans(s).len() >= 4 {
+            out.push((r, Unit::Sentence));
+            continue;
+        }
+        let mut at = r.start;
+        for line in s.split_inclusive('\n') {
+            let start = at + (line.len() - line.trim_start().len());
+            at += line.len();
+            let core = line.trim();
+            if record_line(core) {
+                out.push((start..start + core.len(), Unit::Line));
+            }
+        }
+    }
+    out
+}
+
+/// A line of a block that states something on its own: a field ("Label:
+/// value") or a line item with an amount of money, of at least four terms
+/// with some words among them; not a rule, a page number, a heading in
+/// capitals, a subject or reference line or contact details. A row of
+/// bare figures means nothing without its table's headings.
+fn record_line(l: &str) -> bool {
+    static FIELD: std::sync::LazyLock<regex::Regex> = std::sync::LazyLock::new(|| {
+        regex::Regex::new(r"^[A-Za-z][A-Za-z()/ .-]{0,30}:\s").expect("static regex")
+    });
+    static MONEY: std::sync::LazyLock<regex::Regex> = std::sync::LazyLock::new(|| {
+        regex::Regex::new(r"[$\u{20ac}\u{a3}]\s?\d").expect("static regex")
+    });
+    let letters = l.chars().filter(|c| c.is_alphabetic()).count();
+    let upper = l.chars().filter(|c| c.is_uppercase()).count();
+    let digits = l.chars().filter(|c| c.is_ascii_digit()).count();
+    // Quoted mail ("> Subject: ...") reads as the line it quotes.
+    let head = l
+        .trim_start_matches(|c: char| c == '>' || c.is_whitespace())
+        .to_ascii_lowercase();
+    const NOT_FACTS: &[&str] = &[
+        "subject:",
+        "re:",
+        "reference:",
+        "memo:",
+        "memorandum:",
+        "title:",
+        "briefing note",
+        "ref:",
+        "file:",
+        "our file",
+        "your file",
+        "attachment",
+        "page ",
+        "tel",
+        "phone",
+        "fax",
+        "email",
+        "e-mail",
+        "direct line",
+        "classification",
+        "security",
+        "[signature]",
+        "signed:",
+        "per:",
+    ];
+    (FIELD.is_match(l) || MONEY.is_match(l))
+        && letters >= 10
+        && upper * 2 < letters
+        && digits <= letters
+        && term_spans(l).len() >= 4
+        && !l.contains("---")
+        && !l.contains("___")
+        && !l.contains("===")
+        && !l.contains('\u{a9}')
+        && !NOT_FACTS.iter().any(|k| head.starts_with(k))
 }
 
 /// The text a candidate sentence is embedded as.
@@ -78,7 +168,9 @@ fn is_header_line(s: &str) -> bool {
     if s.lines().filter(|l| FIELD.is_match(l)).count() >= 2 {
         return true;
     }
-    let head = s.trim_start().to_ascii_lowercase();
+    let head = s
+        .trim_start_matches(|c: char| c == '>' || c.is_whitespace())
+        .to_ascii_lowercase();
     [
         "cc:",
         "bcc:",
@@ -94,6 +186,9 @@ fn is_header_line(s: &str) -> bool {
         "prepared for:",
         "prepared by:",
         "approved by:",
+        "memo:",
+        "memorandum:",
+        "title:",
     ]
     .iter()
     .any(|k| head.starts_with(k))
@@ -138,6 +233,8 @@ pub struct Candidate {
     pub rule_score: f32,
     /// Why it does not answer the question, though it may be supported.
     pub off_question: Option<String>,
+    /// A line of a block (a field, a line item) rather than a sentence.
+    pub line: bool,
     pub terms: HashSet<String>,
 }
 
@@ -197,18 +294,28 @@ pub fn featurize(
 ) -> (QuestionInfo, Vec<(Candidate, Vec<f32>)>) {
     // The candidates first: their words weigh the question's terms.
     let mut seen: HashSet<(String, String)> = HashSet::new();
-    let mut found: Vec<(usize, Vec<Range<usize>>, Vec<usize>)> = Vec::new();
+    // Per retrieved chunk: its index, its candidates' spans, which of them
+    // are kept (not repeats, and lines only for fact questions), and which
+    // are lines.
+    type Found = (usize, Vec<Range<usize>>, Vec<usize>, Vec<bool>);
+    let mut found: Vec<Found> = Vec::new();
+    // A line of a block (a header field, a line item) can state a name,
+    // a date or an amount, but not a reason or a course of events.
+    let facts = AnswerKind::of(question) != AnswerKind::Any;
     for (ci, r) in retrieved.iter().enumerate() {
-        let spans = candidate_spans(&r.chunk.text);
+        let units = candidate_units(&r.chunk.text);
+        let spans: Vec<Range<usize>> = units.iter().map(|(r, _)| r.clone()).collect();
         let keep: Vec<usize> = (0..spans.len())
+            .filter(|i| facts || units[*i].1 == Unit::Sentence)
             .filter(|i| {
                 let folded = fold_ws(&r.chunk.text[spans[*i].clone()]);
                 seen.insert((r.chunk.doc_id.0.clone(), folded))
             })
             .collect();
-        found.push((ci, spans, keep));
+        let lines = units.iter().map(|(_, u)| *u == Unit::Line).collect();
+        found.push((ci, spans, keep, lines));
     }
-    let idf = features::local_idf(found.iter().flat_map(|(ci, spans, keep)| {
+    let idf = features::local_idf(found.iter().flat_map(|(ci, spans, keep, _)| {
         keep.iter()
             .map(move |i| &retrieved[*ci].chunk.text[spans[*i].clone()])
     }));
@@ -223,7 +330,7 @@ pub fn featurize(
     });
     let qv = vectors.map(|v| v.question.as_slice());
     let mut out = Vec::new();
-    for (ci, spans, keep) in &found {
+    for (ci, spans, keep, lines) in &found {
         let r = &retrieved[*ci];
         let text = &r.chunk.text;
         let passage = PassageInfo {
@@ -260,6 +367,7 @@ pub fn featurize(
                 score: 0.0,
                 probability: 0.0,
                 rule_score: 0.0,
+                line: lines[i],
                 off_question: relevance::check(
                     question,
                     raw,
@@ -312,6 +420,16 @@ impl Selector {
                 .then(a.chunk_idx.cmp(&b.chunk_idx))
                 .then(a.span.start.cmp(&b.span.start))
         });
+        for (i, c) in out.iter().take(10).enumerate() {
+            tracing::debug!(
+                rank = i + 1,
+                passage = c.chunk_idx + 1,
+                score = c.score,
+                probability = c.probability,
+                sentence = %c.text,
+                "selector candidate"
+            );
+        }
         Selection {
             model: model.name.clone(),
             threshold: self.min_probability.unwrap_or(model.threshold),
@@ -374,5 +492,45 @@ mod tests {
                 "The board met twice that month to discuss it."
             ]
         );
+    }
+
+    #[test]
+    fn a_block_of_fields_is_offered_line_by_line() {
+        let text = "Report date:    June 22, 2018\n\
+                    Surveyor:       Aldric Penhale, Certified Marine Surveyor\n\
+                    Reviewed by:    Morwenna Trask, Senior Marine Surveyor\n\
+                    Subject:        Ramp 3A condition survey, Pier 3 terminal\n\
+                    Page 1 of 3\n";
+        let units = candidate_units(text);
+        let got: Vec<(&str, Unit)> = units.iter().map(|(r, u)| (&text[r.clone()], *u)).collect();
+        assert_eq!(
+            got,
+            vec![
+                ("Report date:    June 22, 2018", Unit::Line),
+                (
+                    "Surveyor:       Aldric Penhale, Certified Marine Surveyor",
+                    Unit::Line
+                ),
+                (
+                    "Reviewed by:    Morwenna Trask, Senior Marine Surveyor",
+                    Unit::Line
+                ),
+            ]
+        );
+        // A line item states an amount; a row of bare figures does not.
+        let items = "2.1 The Contract Price is increased by $1,860,000, made up of:\n\n\
+                     Extended site overheads, 18 weeks at $84,000 per week   $1,512,000\n\
+                     Total   $1,860,000   $348,000   18.0%\n\
+                     Harbour Road traffic management   0.60   1.00   0.40\n";
+        let got: Vec<&str> = candidate_spans(items)
+            .iter()
+            .map(|r| &items[r.clone()])
+            .collect();
+        assert!(
+            got.contains(&"Extended site overheads, 18 weeks at $84,000 per week   $1,512,000"),
+            "{got:?}"
+        );
+        assert!(!got.iter().any(|s| s.starts_with("Total")), "{got:?}");
+        assert!(!got.iter().any(|s| s.starts_with("Harbour")), "{got:?}");
     }
 }

@@ -1,8 +1,11 @@
 //! The relevance check: a sentence can be supported by its quote and still
-//! not answer the question. Three checks, each with a reason a reporter can
-//! read: another year than the one asked about; a proposal that failed
+//! not answer the question. Each check gives a reason a reporter can read:
+//! another year than the one asked about; a proposal that failed
 //! (defeated, rejected, not approved) when the question asks what was done;
-//! another numbered thing (Pier 5, Amendment No. 3) than the one named.
+//! another numbered thing (Pier 5, Amendment No. 3) than the one named; no
+//! rate in the unit asked for (a price per tonne, a daily penalty); only
+//! money when the question asks how many; the fact asked for withheld
+//! (a redacted name or figure).
 //!
 //! invariant: a check only sets a sentence aside, with a reason naming what
 //! differs; it never makes a sentence an answer, and never touches the
@@ -27,6 +30,144 @@ pub fn check(question: &str, sentence: &str, ctx: Context<'_>) -> Option<String>
     other_year(question, sentence, ctx)
         .or_else(|| failed_proposal(question, sentence, ctx))
         .or_else(|| other_label(question, sentence))
+        .or_else(|| no_rate(question, sentence))
+        .or_else(|| money_for_a_count(question, sentence))
+        .or_else(|| redacted(question, sentence))
+}
+
+/// A redaction mark: "[REDACTED - s. 21(1)]", "[withheld]", a run of
+/// blocks.
+static REDACTION: LazyLock<Regex> = LazyLock::new(|| {
+    Regex::new(r"(?i)\[\s*(?:redacted|withheld|exempt|severed)[^\]]*\]|\u{2588}{2,}")
+        .expect("static regex")
+});
+
+/// A sentence whose name (for a question asking who or which company) or
+/// whose only fact of the asked kind is withheld does not answer; it says
+/// where the answer was removed, which a reporter may want to challenge.
+fn redacted(question: &str, sentence: &str) -> Option<String> {
+    use super::AnswerKind;
+    if !REDACTION.is_match(sentence) {
+        return None;
+    }
+    let kind = AnswerKind::of(question);
+    let open = REDACTION.replace_all(sentence, " ");
+    let withheld = match kind {
+        AnswerKind::Any => false,
+        AnswerKind::Name => true,
+        _ => !kind.satisfied_by(&open, question),
+    };
+    withheld
+        .then(|| "supported, but the part that would answer is redacted in this record".to_string())
+}
+
+/// "How many" asks for a count; a sentence whose only fresh numbers are
+/// amounts of money does not give one.
+fn money_for_a_count(question: &str, sentence: &str) -> Option<String> {
+    let q = question.to_lowercase();
+    if !q.contains("how many") || q.contains("how many dollars") {
+        return None;
+    }
+    static MONEY: LazyLock<Regex> = LazyLock::new(|| {
+        Regex::new(
+            r"[$\u{20ac}\u{a3}]\s?\d[\d,]*(?:\.\d+)?(?:\s?(?:million|billion|thousand|[mk]\b))?",
+        )
+        .expect("static regex")
+    });
+    if !MONEY.is_match(sentence) {
+        return None;
+    }
+    let rest = MONEY.replace_all(sentence, " ");
+    let counts = super::AnswerKind::Quantity.satisfied_by(&rest, question);
+    (!counts).then(|| {
+        "supported, but states an amount of money, and the question asks how many".to_string()
+    })
+}
+
+/// The unit of a rate the question asks for: "per tonne", "a pile",
+/// "daily", "weekly" (as the unit's noun: tonne, pile, day, week).
+fn rate_unit(question: &str) -> Option<String> {
+    static PER: LazyLock<Regex> =
+        LazyLock::new(|| Regex::new(r"(?i)\b(?:per|each|an?)\s+([a-z]+)\b").expect("static regex"));
+    const ADJECTIVES: &[(&str, &str)] = &[
+        ("hourly", "hour"),
+        ("daily", "day"),
+        ("weekly", "week"),
+        ("monthly", "month"),
+        ("annual", "year"),
+        ("yearly", "year"),
+    ];
+    let q = question.to_lowercase();
+    // Only a question about an amount asks for a rate.
+    let kind = super::AnswerKind::of(question);
+    if !matches!(kind, super::AnswerKind::Money | super::AnswerKind::Quantity) {
+        return None;
+    }
+    for w in q.split(|c: char| !c.is_alphabetic()) {
+        if let Some((_, unit)) = ADJECTIVES.iter().find(|(a, _)| *a == w) {
+            return Some(unit.to_string());
+        }
+    }
+    // "per tonne", "for each pile"; "a" only before a unit of time or
+    // measure ("$40 a tonne"), where it reads as "per".
+    const MEASURES: &[&str] = &[
+        "hour",
+        "day",
+        "week",
+        "month",
+        "year",
+        "tonne",
+        "ton",
+        "metre",
+        "meter",
+        "kilometre",
+        "kilometer",
+        "litre",
+        "liter",
+        "kilogram",
+        "pile",
+        "unit",
+        "trip",
+        "sailing",
+        "passenger",
+        "vehicle",
+        "person",
+        "head",
+    ];
+    PER.captures_iter(&q)
+        .find(|c| {
+            let w = &c[0].to_lowercase();
+            w.starts_with("per") || w.starts_with("each") || MEASURES.contains(&&c[1])
+        })
+        .map(|c| c[1].to_string())
+}
+
+fn no_rate(question: &str, sentence: &str) -> Option<String> {
+    let unit = rate_unit(question)?;
+    let s = sentence.to_lowercase();
+    let stem = unit.trim_end_matches('s');
+    let stated = [
+        format!("per {stem}"),
+        format!("a {stem}"),
+        format!("an {stem}"),
+        format!("each {stem}"),
+        format!("/{stem}"),
+        format!("/ {stem}"),
+    ]
+    .iter()
+    .any(|p| s.contains(p.as_str()))
+        || [
+            ("hour", "hourly"),
+            ("day", "daily"),
+            ("week", "weekly"),
+            ("month", "monthly"),
+            ("year", "annual"),
+            ("year", "yearly"),
+        ]
+        .iter()
+        .any(|(u, adj)| *u == stem && s.contains(adj));
+    (!stated)
+        .then(|| format!("supported, but states no amount per {stem}, which the question asks for"))
 }
 
 static YEAR: LazyLock<Regex> =
@@ -342,6 +483,70 @@ mod tests {
             (
                 "What did the Pier 3 rebuild cost in the end?",
                 "The final cost of the Pier 3 rebuild was $65.1 million.",
+                None,
+                None,
+            ),
+            // A rate in the unit asked for.
+            (
+                "What price per tonne did the contractor bid for structural steel?",
+                "The contractor's bid for structural steel was $4.2 million.",
+                None,
+                Some("no amount per tonne"),
+            ),
+            (
+                "What price per tonne did the contractor bid for structural steel?",
+                "Structural steel was priced at $3,150 per tonne.",
+                None,
+                None,
+            ),
+            (
+                "What daily penalty applies if the dredging is late?",
+                "Liquidated damages are $4,000 for each day of delay.",
+                None,
+                None,
+            ),
+            (
+                "What daily penalty applies if the dredging is late?",
+                "Liquidated damages are capped at $200,000.",
+                None,
+                Some("no amount per day"),
+            ),
+            // Not a rate: "a" before something other than a unit.
+            (
+                "How much did a consultant charge for the review?",
+                "The review cost $18,000.",
+                None,
+                None,
+            ),
+            // A count, not money.
+            (
+                "How many change orders were approved by the end of 2019?",
+                "The approved project budget for all the works stands at $52.4 million.",
+                None,
+                Some("asks how many"),
+            ),
+            (
+                "How many change orders were approved by the end of 2019?",
+                "27 change orders, worth $1.2 million, had been approved.",
+                None,
+                None,
+            ),
+            // Withheld.
+            (
+                "Which company made the pump that failed its factory test?",
+                "Our supplier, [REDACTED - s. 21(1)], told us the pump failed its factory test.",
+                None,
+                Some("redacted"),
+            ),
+            (
+                "How much was the settlement?",
+                "The settlement of [REDACTED] was paid to the claimant.",
+                None,
+                Some("redacted"),
+            ),
+            (
+                "How much was the settlement?",
+                "The settlement of $2.1 million was approved by [REDACTED].",
                 None,
                 None,
             ),
