@@ -179,7 +179,7 @@ impl Drafter for Extractive {
                 set_aside,
             });
         }
-        // The best-ranked answer first. Then maximal marginal relevance
+        // The best-ranked sentence first. Then maximal marginal relevance
         // over the other likely sentences and those the rule-based score
         // rates highly (the question's own words, in the records' wording),
         // so extra sentences add something. A line of a block (a header
@@ -193,7 +193,15 @@ impl Drafter for Extractive {
             .filter(|c| c.probability >= threshold || (!c.line && c.rule_score >= RULE_FLOOR))
             .collect();
         let relevance = |c: &Candidate| c.probability.max(c.rule_score);
-        let mut chosen: Vec<&Candidate> = vec![likely[0]];
+        // The trigger decides whether to answer; the ranker, trained for
+        // order, decides with what: the best-ranked sentence that is not
+        // set aside (a line only when it is likely itself).
+        let first = sel
+            .candidates
+            .iter()
+            .find(|c| c.off_question.is_none() && (!c.line || c.probability >= threshold))
+            .unwrap_or(likely[0]);
+        let mut chosen: Vec<&Candidate> = vec![first];
         while chosen.len() < self.cfg.max_sentences {
             let next = pool
                 .iter()

@@ -289,9 +289,11 @@ fn slow_the_bundled_demo_eval_runs_end_to_end() {
         // Each kind of question apart (ids a and b in the records' words,
         // r as a reporter words them, n near misses): the demo's own
         // figures (gold answer in a verified sentence for a and b together
-        // 0.63 + 0.55 with BM25, 0.54 + 0.55 hybrid; for r 0.23 and 0.25;
-        // near misses declined 0.88 and 0.75 with the rate, count and
-        // redaction checks, 0.62 and 0.50 without); the floors sit below.
+        // 0.62 + 0.64 with BM25, 0.62 + 0.55 hybrid; for r 0.26 and 0.28
+        // (0.21 before record lines, the new answer kinds and the ranker's
+        // first sentence first); near misses declined 0.88 and 0.75 with
+        // the rate, count and redaction checks, 0.62 and 0.50 without);
+        // the floors sit below.
         let g = |group: &str, metric: &str| {
             c["groups"][group]["headline"][metric]
                 .as_f64()
@@ -306,7 +308,7 @@ fn slow_the_bundled_demo_eval_runs_end_to_end() {
             "{:#}",
             c["groups"]
         );
-        assert!(g("r", "answer_contained") >= 0.15, "{:#}", c["groups"]);
+        assert!(g("r", "answer_contained") >= 0.22, "{:#}", c["groups"]);
         assert!(g("n", "abstain_recall") >= 0.6, "{:#}", c["groups"]);
     }
     if configs.len() == 2 {
