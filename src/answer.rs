@@ -109,7 +109,8 @@ pub struct SelectionRecord {
     pub model: String,
     /// Candidate sentences scored.
     pub candidates: usize,
-    /// Estimated probability that the best candidate not set aside answers.
+    /// The highest estimated probability that a candidate not set aside
+    /// answers: an answer is given when it reaches the threshold.
     pub answer_probability: f32,
     /// The probability an answer needs.
     pub threshold: f32,

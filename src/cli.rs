@@ -260,9 +260,9 @@ struct RetrievalArgs {
     /// differently from the question; can also drift off the subject.
     #[arg(long)]
     feedback: bool,
-    /// Find chunks by their best sentence as well as by their whole text
-    /// (the sentence vectors ingest stores for answer selection; the first
-    /// search builds their graph in memory).
+    /// Find passages by their closest sentence as well as by their whole
+    /// text, with the sentence vectors ingest already stores (the first
+    /// search takes about a second per 10,000 sentences to prepare them).
     #[arg(long)]
     sentence_vectors: bool,
 }

@@ -83,21 +83,24 @@ pub fn decline_reason(sel: &Selection, retrieved: usize) -> String {
     if sel.candidates.is_empty() {
         return "the retrieved passages hold no full sentence to quote (only headings, tables or header lines)".into();
     }
-    if let Some(c) = sel
-        .candidates
-        .iter()
-        .find(|c| c.probability >= sel.threshold)
-    {
-        // Likely enough, but every such sentence was set aside.
+    // Likely enough, but every such sentence was set aside; or every
+    // sentence was.
+    let set_aside = match sel.best() {
+        None => sel.candidates.first(),
+        Some(_) => sel
+            .candidates
+            .iter()
+            .find(|c| c.probability >= sel.threshold),
+    };
+    if let Some(c) = set_aside {
         return format!(
             "the sentences that come closest do not answer this question: {}",
             c.off_question.as_deref().unwrap_or("set aside")
         );
     }
-    let best = sel.candidates[0].probability;
     let mut reason = format!(
         "no retrieved sentence is likely enough to answer it (the closest is {:.0}% likely; an answer needs {:.0}%)",
-        best * 100.0,
+        sel.answer_probability() * 100.0,
         sel.threshold * 100.0
     );
     let kind = match sel.kind {
@@ -158,11 +161,6 @@ impl Drafter for Extractive {
             }
         };
         let threshold = sel.threshold;
-        let likely: Vec<&Candidate> = sel
-            .candidates
-            .iter()
-            .filter(|c| c.probability >= threshold && c.off_question.is_none())
-            .collect();
         // Likely sentences the relevance check set aside, listed apart.
         let set_aside: Vec<(DraftSentence, String)> = sel
             .candidates
@@ -171,14 +169,14 @@ impl Drafter for Extractive {
             .filter_map(|c| Some((self.quote(req, c), c.off_question.clone()?)))
             .take(self.cfg.max_set_aside)
             .collect();
-        if likely.is_empty() {
+        let Some(first) = sel.opening() else {
             return Ok(Draft {
                 sentences: vec![],
                 abstain: Some(decline_reason(sel, req.retrieved.len())),
                 model: None,
                 set_aside,
             });
-        }
+        };
         // The best-ranked sentence first. Then maximal marginal relevance
         // over the other likely sentences and those the rule-based score
         // rates highly (the question's own words, in the records' wording),
@@ -193,14 +191,6 @@ impl Drafter for Extractive {
             .filter(|c| c.probability >= threshold || (!c.line && c.rule_score >= RULE_FLOOR))
             .collect();
         let relevance = |c: &Candidate| c.probability.max(c.rule_score);
-        // The trigger decides whether to answer; the ranker, trained for
-        // order, decides with what: the best-ranked sentence that is not
-        // set aside (a line only when it is likely itself).
-        let first = sel
-            .candidates
-            .iter()
-            .find(|c| c.off_question.is_none() && (!c.line || c.probability >= threshold))
-            .unwrap_or(likely[0]);
         let mut chosen: Vec<&Candidate> = vec![first];
         while chosen.len() < self.cfg.max_sentences {
             let next = pool

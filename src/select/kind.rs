@@ -359,17 +359,41 @@ fn is_year(s: &str) -> bool {
     s.parse::<u32>().is_ok_and(|y| (1500..2200).contains(&y))
 }
 
+/// Whether `s` states an amount with a currency sign ("$84,000").
+pub(crate) fn states_money(s: &str) -> bool {
+    number_re()
+        .find_iter(s)
+        .any(|m| m.as_str().starts_with(['$', '€', '£']))
+}
+
+/// Whether `s` states a count or quantity, not an amount of money, that
+/// `question` does not give.
+pub(crate) fn states_count_besides_money(s: &str, question: &str) -> bool {
+    let rest = number_re().replace_all(s, |c: &regex::Captures<'_>| {
+        if is_money(&c[0]) {
+            " ".to_string()
+        } else {
+            c[0].to_string()
+        }
+    });
+    let asked = quantities(question);
+    quantities(&rest).iter().any(|n| !asked.contains(n))
+}
+
+/// Whether a match of [`number_re`] is an amount of money.
+fn is_money(m: &str) -> bool {
+    m.starts_with(['$', '€', '£'])
+        || m.ends_with("million")
+        || m.ends_with("billion")
+        || m.ends_with("dollars")
+}
+
 /// Currency amounts, as digit strings.
 fn money(s: &str) -> HashSet<String> {
     number_re()
         .find_iter(s)
         .map(|m| m.as_str())
-        .filter(|m| {
-            m.starts_with(['$', '€', '£'])
-                || m.ends_with("million")
-                || m.ends_with("billion")
-                || m.ends_with("dollars")
-        })
+        .filter(|m| is_money(m))
         .map(digits)
         .collect()
 }

@@ -46,9 +46,11 @@ pub enum Unit {
     Line,
 }
 
-/// Sentences that can be quoted as an answer: prose of at least four
-/// terms, not a heading, table row, header line or page furniture. Ingest
-/// embeds exactly these, so selection finds their vectors stored.
+/// What can be quoted as an answer: prose sentences of at least four
+/// terms (not a heading, a table row, a header line or page furniture)
+/// and the lines of non-prose blocks that state a fact on their own (see
+/// [`candidate_units`]). Ingest embeds exactly these, so selection finds
+/// their vectors stored.
 pub fn candidate_spans(text: &str) -> Vec<Range<usize>> {
     candidate_units(text).into_iter().map(|(r, _)| r).collect()
 }
@@ -88,9 +90,6 @@ fn record_line(l: &str) -> bool {
     static FIELD: std::sync::LazyLock<regex::Regex> = std::sync::LazyLock::new(|| {
         regex::Regex::new(r"^[A-Za-z][A-Za-z()/ .-]{0,30}:\s").expect("static regex")
     });
-    static MONEY: std::sync::LazyLock<regex::Regex> = std::sync::LazyLock::new(|| {
-        regex::Regex::new(r"[$\u{20ac}\u{a3}]\s?\d").expect("static regex")
-    });
     let letters = l.chars().filter(|c| c.is_alphabetic()).count();
     let upper = l.chars().filter(|c| c.is_uppercase()).count();
     let digits = l.chars().filter(|c| c.is_ascii_digit()).count();
@@ -124,7 +123,7 @@ fn record_line(l: &str) -> bool {
         "signed:",
         "per:",
     ];
-    (FIELD.is_match(l) || MONEY.is_match(l))
+    (FIELD.is_match(l) || kind::states_money(l))
         && letters >= 10
         && upper * 2 < letters
         && digits <= letters
@@ -254,9 +253,32 @@ impl Selection {
         self.candidates.iter().find(|c| c.off_question.is_none())
     }
 
-    /// The probability that the best candidate answers (0 with none).
+    /// The highest probability that a candidate not set aside answers (0
+    /// with none): what the decision to answer reads.
     pub fn answer_probability(&self) -> f32 {
-        self.best().map(|c| c.probability).unwrap_or(0.0)
+        self.candidates
+            .iter()
+            .filter(|c| c.off_question.is_none())
+            .map(|c| c.probability)
+            .fold(0.0, f32::max)
+    }
+
+    /// Whether to answer: some candidate not set aside is likely enough.
+    pub fn answers(&self) -> bool {
+        self.answer_probability() >= self.threshold
+    }
+
+    /// The sentence an answer opens with: the best-ranked candidate not
+    /// set aside (the ranker, trained for order, picks better than the
+    /// probability does), a line of a block only when it is likely itself.
+    /// `None` when the selection does not answer.
+    pub fn opening(&self) -> Option<&Candidate> {
+        if !self.answers() {
+            return None;
+        }
+        self.candidates
+            .iter()
+            .find(|c| c.off_question.is_none() && (!c.line || c.probability >= self.threshold))
     }
 }
 

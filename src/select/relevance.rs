@@ -68,17 +68,10 @@ fn money_for_a_count(question: &str, sentence: &str) -> Option<String> {
     if !q.contains("how many") || q.contains("how many dollars") {
         return None;
     }
-    static MONEY: LazyLock<Regex> = LazyLock::new(|| {
-        Regex::new(
-            r"[$\u{20ac}\u{a3}]\s?\d[\d,]*(?:\.\d+)?(?:\s?(?:million|billion|thousand|[mk]\b))?",
-        )
-        .expect("static regex")
-    });
-    if !MONEY.is_match(sentence) {
+    if !super::kind::states_money(sentence) {
         return None;
     }
-    let rest = MONEY.replace_all(sentence, " ");
-    let counts = super::AnswerKind::Quantity.satisfied_by(&rest, question);
+    let counts = super::kind::states_count_besides_money(sentence, question);
     (!counts).then(|| {
         "supported, but states an amount of money, and the question asks how many".to_string()
     })
