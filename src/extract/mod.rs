@@ -68,6 +68,11 @@ pub enum ExtractError {
     Empty,
     #[error("not a readable e-mail message: {0}")]
     Email(String),
+    /// An HTML page nested deeper than any real page.
+    #[error(
+        "the page nests its tags {depth} deep, more than the {max} a real page needs (broken or hostile HTML)"
+    )]
+    TooDeep { depth: usize, max: usize },
 }
 
 /// Extraction settings.
@@ -109,7 +114,7 @@ pub fn extract(
             }
         }
         Kind::Text | Kind::Markdown => plain::extract(bytes, kind == Kind::Markdown),
-        Kind::Html => html::extract(bytes),
+        Kind::Html => html::extract(bytes)?,
         Kind::Email => eml::extract(bytes)?,
     };
     for p in &mut out.pages {
