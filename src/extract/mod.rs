@@ -73,6 +73,23 @@ pub enum ExtractError {
         "the page nests its tags {depth} deep, more than the {max} a real page needs (broken or hostile HTML)"
     )]
     TooDeep { depth: usize, max: usize },
+    /// A text, Markdown or HTML file whose bytes are not text.
+    #[error("the file holds binary data, not text (a NUL byte in its first {BINARY_PROBE} bytes)")]
+    Binary,
+}
+
+/// How many leading bytes are checked for a NUL byte, the sign of binary
+/// data (common practice: git decides "binary" the same way, on its first
+/// 8,000 bytes).
+pub const BINARY_PROBE: usize = 8000;
+
+/// Whether `bytes` look like binary data rather than text: a NUL byte near
+/// the start, unless the file declares UTF-16 by its byte-order mark.
+pub fn looks_binary(bytes: &[u8]) -> bool {
+    if bytes.starts_with(b"\xFF\xFE") || bytes.starts_with(b"\xFE\xFF") {
+        return false;
+    }
+    bytes[..bytes.len().min(BINARY_PROBE)].contains(&0)
 }
 
 /// Extraction settings.
@@ -112,6 +129,9 @@ pub fn extract(
                 drawings,
                 ..Default::default()
             }
+        }
+        Kind::Text | Kind::Markdown | Kind::Html if looks_binary(bytes) => {
+            return Err(ExtractError::Binary);
         }
         Kind::Text | Kind::Markdown => plain::extract(bytes, kind == Kind::Markdown),
         Kind::Html => html::extract(bytes)?,
@@ -167,6 +187,26 @@ fn pdf_with_fallback(
 /// Decode bytes as UTF-8, or as Windows-1252 when they are not valid UTF-8
 /// (older records often are). Returns the text and whether the fallback was used.
 pub(crate) fn decode_text(bytes: &[u8]) -> (String, bool) {
+    // UTF-16 with a byte-order mark, as Windows tools write "Unicode" text.
+    let utf16 = |rest: &[u8], le: bool| -> String {
+        let units: Vec<u16> = rest
+            .chunks_exact(2)
+            .map(|c| {
+                if le {
+                    u16::from_le_bytes([c[0], c[1]])
+                } else {
+                    u16::from_be_bytes([c[0], c[1]])
+                }
+            })
+            .collect();
+        String::from_utf16_lossy(&units)
+    };
+    if let Some(rest) = bytes.strip_prefix(b"\xFF\xFE") {
+        return (utf16(rest, true), false);
+    }
+    if let Some(rest) = bytes.strip_prefix(b"\xFE\xFF") {
+        return (utf16(rest, false), false);
+    }
     let bytes = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(bytes);
     match std::str::from_utf8(bytes) {
         Ok(s) => (s.to_string(), false),
@@ -189,6 +229,33 @@ fn cp1252(b: u8) -> char {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// A NUL byte near the start marks binary data (common practice: git's
+    /// own test, on the first 8,000 bytes); UTF-16 text with its byte-order
+    /// mark is text and is decoded.
+    #[test]
+    fn binary_bytes_under_a_text_name_are_refused_and_utf16_is_read() {
+        let opts = ExtractOptions::default();
+        let junk: Vec<u8> = (0..4000u32).map(|i| (i * 7919 % 251) as u8).collect();
+        for kind in [Kind::Text, Kind::Markdown, Kind::Html] {
+            let e = extract(Path::new("x"), kind, &junk, &opts).unwrap_err();
+            assert!(matches!(e, ExtractError::Binary), "{kind:?}: {e}");
+        }
+        let mut le = vec![0xFF, 0xFE];
+        let mut be = vec![0xFE, 0xFF];
+        for u in "Pier 3 closes at noon.".encode_utf16() {
+            le.extend(u.to_le_bytes());
+            be.extend(u.to_be_bytes());
+        }
+        for bytes in [le, be] {
+            let x = extract(Path::new("x.txt"), Kind::Text, &bytes, &opts).unwrap();
+            assert_eq!(x.pages, vec!["Pier 3 closes at noon.".to_string()]);
+        }
+        // A NUL after the probed prefix is not looked for.
+        let mut late = b"A plain note. ".repeat(700);
+        late.push(0);
+        assert!(!looks_binary(&late));
+    }
 
     #[test]
     fn kinds_by_extension() {
