@@ -161,6 +161,21 @@ fn pdf_with_fallback(
 ) -> Result<PdfRead, pdf::PdfError> {
     use pdf::{PdfError, PdfRoute, extract_layer as extract_pages};
     match extract_pages(path, bytes, route) {
+        // The parser could not load it; pdftotext may still repair it.
+        Err(PdfError::Corrupt(first))
+            if !pdf::loads(bytes) && pdf::find_on_path("pdftotext").is_some() =>
+        {
+            match pdf::repaired_pages(path) {
+                Ok(pages) => Ok((
+                    pages,
+                    Vec::new(),
+                    vec![format!(
+                        "damaged PDF ({first}); read by pdftotext, which repaired its structure; its pages were not checked for OCR"
+                    )],
+                )),
+                Err(_) => Err(PdfError::Corrupt(first)),
+            }
+        }
         Err(PdfError::Corrupt(first)) => {
             let other = match route {
                 PdfRoute::Pdftotext => PdfRoute::PureRust,
@@ -255,6 +270,83 @@ mod tests {
         let mut late = b"A plain note. ".repeat(700);
         late.push(0);
         assert!(!looks_binary(&late));
+    }
+
+    /// A one-page PDF with a classic cross-reference table, its
+    /// `startxref` pointing `shift` bytes past the table (0: intact).
+    fn classic_pdf(sentence: &str, shift: usize) -> Vec<u8> {
+        let content = format!("BT /F1 12 Tf 72 700 Td ({sentence}) Tj ET");
+        let objs = [
+            "<< /Type /Catalog /Pages 2 0 R >>".to_string(),
+            "<< /Type /Pages /Kids [3 0 R] /Count 1 >>".into(),
+            "<< /Type /Page /Parent 2 0 R /MediaBox [0 0 612 792] /Contents 4 0 R \
+             /Resources << /Font << /F1 5 0 R >> >> >>"
+                .into(),
+            format!(
+                "<< /Length {} >>\nstream\n{content}\nendstream",
+                content.len()
+            ),
+            "<< /Type /Font /Subtype /Type1 /BaseFont /Helvetica >>".into(),
+        ];
+        let mut out = String::from("%PDF-1.4\n");
+        let mut offsets = Vec::new();
+        for (i, o) in objs.iter().enumerate() {
+            offsets.push(out.len());
+            out.push_str(&format!("{} 0 obj\n{o}\nendobj\n", i + 1));
+        }
+        let xref = out.len();
+        out.push_str("xref\n0 6\n0000000000 65535 f \n");
+        for o in offsets {
+            out.push_str(&format!("{o:010} 00000 n \n"));
+        }
+        out.push_str(&format!(
+            "trailer\n<< /Size 6 /Root 1 0 R >>\nstartxref\n{}\n%%EOF\n",
+            xref + shift
+        ));
+        out.into_bytes()
+    }
+
+    /// A PDF whose cross-reference pointer is wrong (a common fault of
+    /// damaged downloads) is read by pdftotext, which rebuilds the table,
+    /// and the file says so; the built-in parser alone refuses it.
+    #[test]
+    fn a_damaged_cross_reference_is_repaired_by_pdftotext() {
+        let dir = tempfile::tempdir().unwrap();
+        let sentence = "The quay gate was repaired in May.";
+        let intact = dir.path().join("intact.pdf");
+        std::fs::write(&intact, classic_pdf(sentence, 0)).unwrap();
+        let damaged = dir.path().join("damaged.pdf");
+        let bytes = classic_pdf(sentence, 7);
+        std::fs::write(&damaged, &bytes).unwrap();
+        assert!(pdf::loads(&std::fs::read(&intact).unwrap()));
+        assert!(
+            !pdf::loads(&bytes),
+            "the parser should refuse the damaged file"
+        );
+        let opts = ExtractOptions {
+            pdf_route: pdf::PdfRoute::PureRust,
+        };
+        let read = extract(&damaged, Kind::Pdf, &bytes, &opts);
+        if pdf::find_on_path("pdftotext").is_none() {
+            assert!(
+                std::env::var("CI").as_deref() != Ok("true"),
+                "pdftotext (poppler-utils) is required under CI=true"
+            );
+            assert!(matches!(
+                read,
+                Err(ExtractError::Pdf(pdf::PdfError::Corrupt(_)))
+            ));
+            return;
+        }
+        let x = read.unwrap();
+        assert_eq!(x.pages.len(), 1);
+        assert!(x.pages[0].contains(sentence), "{:?}", x.pages);
+        assert!(
+            x.notes.iter().any(|n| n.contains("repaired")),
+            "{:?}",
+            x.notes
+        );
+        assert!(x.drawings.is_empty());
     }
 
     #[test]

@@ -646,6 +646,11 @@ fn media_box(doc: &Document, page_id: ObjectId) -> Option<(f64, f64)> {
     None
 }
 
+/// Whether the built-in parser loads these bytes at all (decrypted or not).
+pub fn loads(bytes: &[u8]) -> bool {
+    matches!(load_checked(bytes), Ok(_) | Err(PdfError::Encrypted))
+}
+
 /// Loads with lopdf (inside the panic guard) and applies the encryption rule.
 fn load_checked(bytes: &[u8]) -> Result<Document, PdfError> {
     if bytes.is_empty() {
@@ -770,6 +775,25 @@ fn pdftotext_pages(path: &Path, pages_hint: usize) -> Result<Vec<String>, PdfErr
     Ok(pages)
 }
 
+/// The text of a PDF whose structure the built-in parser cannot load (a
+/// truncated download, a damaged cross-reference table), read by
+/// pdftotext, which rebuilds the structure from the objects it finds.
+/// Without the parser nothing is known of what the pages draw, so no page
+/// of such a file is sent to OCR.
+pub fn repaired_pages(path: &Path) -> Result<Vec<String>, PdfError> {
+    let pages: Vec<String> = pdftotext_pages(path, 0)?
+        .iter()
+        .map(|p| normalize_page(p))
+        .collect();
+    if pages.is_empty() {
+        return Err(PdfError::NoPages);
+    }
+    if pages.iter().all(|p| p.trim().is_empty()) {
+        return Err(PdfError::NoText { pages: pages.len() });
+    }
+    Ok(pages)
+}
+
 /// Extracts each page with pdf-extract's per-page output device.
 fn pure_rust_pages(mut doc: Document) -> Result<Vec<String>, PdfError> {
     blank_image_xobjects(&mut doc);
@@ -846,7 +870,7 @@ fn short(s: &str) -> String {
     }
 }
 
-pub(crate) fn find_on_path(name: &str) -> Option<PathBuf> {
+pub fn find_on_path(name: &str) -> Option<PathBuf> {
     let path = std::env::var_os("PATH")?;
     std::env::split_paths(&path)
         .map(|dir| dir.join(name))
