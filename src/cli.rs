@@ -496,6 +496,16 @@ enum Command {
         /// How to read PDF text layers.
         #[arg(long, value_enum, default_value_t = PdfRouteArg::Auto)]
         pdf_reader: PdfRouteArg,
+        /// Memory, in MB, that reading one PDF, HTML page or e-mail may use.
+        /// Each is read in a process of its own; one that needs more is
+        /// stopped and reported, and the run goes on. Larger files are
+        /// refused unread.
+        #[arg(long, default_value_t = onrecord::extract::worker::DEFAULT_MEMORY_MB, value_name = "MB")]
+        reader_memory: u64,
+        /// Seconds that reading one such file may take before it is stopped
+        /// and reported (OCR of its pages is not counted).
+        #[arg(long, default_value_t = onrecord::extract::worker::DEFAULT_SECONDS, value_name = "S")]
+        reader_seconds: u64,
         #[command(flatten)]
         ocr: OcrArgs,
         /// Print the summary and diagnostics as JSON.
@@ -684,6 +694,18 @@ enum Command {
     /// Rebuild learned components from open data.
     #[command(subcommand)]
     Train(TrainCommand),
+    /// Read one file and print its text as one JSON line (the worker
+    /// process ingest runs for each PDF, HTML page and e-mail).
+    #[command(name = "read-one", hide = true)]
+    ReadOne {
+        #[arg(long)]
+        kind: String,
+        #[arg(long)]
+        pdf_route: String,
+        #[arg(long)]
+        memory_bytes: u64,
+        path: PathBuf,
+    },
     /// Rebuild the search indexes from the store: BM25, and the vector
     /// index (embedding any chunk that has no vector yet).
     Reindex {
@@ -995,6 +1017,21 @@ pub fn run() -> Result<ExitCode> {
         .try_init();
     let choice = cli.embedder.clone();
     match cli.command {
+        Command::ReadOne {
+            kind,
+            pdf_route,
+            memory_bytes,
+            path,
+        } => {
+            use onrecord::extract::worker;
+            let (Some(kind), Some(route)) =
+                (worker::kind_named(&kind), worker::route_named(&pdf_route))
+            else {
+                bail!("read-one: unknown --kind {kind} or --pdf-route {pdf_route}");
+            };
+            let code = worker::serve_one(&path, kind, route, memory_bytes);
+            Ok(ExitCode::from(code as u8))
+        }
         Command::Ingest {
             paths,
             index,
@@ -1007,10 +1044,19 @@ pub fn run() -> Result<ExitCode> {
             chunk_tokens,
             chunk_overlap,
             pdf_reader,
+            reader_memory,
+            reader_seconds,
             ocr,
             json,
             quiet,
         } => {
+            if reader_memory < 64 || reader_seconds == 0 {
+                bail!("--reader-memory must be at least 64 (MB) and --reader-seconds at least 1");
+            }
+            let mut reader = onrecord::extract::worker::Isolation::this_program()
+                .context("finding this program to read files in a worker process")?;
+            reader.memory_bytes = reader_memory << 20;
+            reader.time_limit = std::time::Duration::from_secs(reader_seconds);
             let (ocr, ocr_settings) = ocr.resolve()?;
             let mut m = Manifest::default();
             for f in &manifest {
@@ -1041,6 +1087,7 @@ pub fn run() -> Result<ExitCode> {
                 progress: !quiet && !json && std::io::stderr().is_terminal(),
                 ocr,
                 ocr_settings,
+                reader: Some(reader),
             };
             let progress = cfg.progress;
             cmd_ingest(&index.index, &paths, &cfg, &choice, progress, json)

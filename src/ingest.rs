@@ -33,6 +33,10 @@ pub struct IngestConfig {
     /// When PDF pages are read by OCR.
     pub ocr: OcrMode,
     pub ocr_settings: OcrSettings,
+    /// Read PDFs, HTML and e-mail in a worker process with a memory and a
+    /// time allowance (the command line always does); `None` reads them in
+    /// this process.
+    pub reader: Option<crate::extract::worker::Isolation>,
 }
 
 /// Counts for the final summary.
@@ -413,6 +417,15 @@ impl Run<'_> {
                 return Ok(None);
             }
         };
+        // Refuse before reading: the bytes are held for hashing.
+        if let Some(iso) = &self.cfg.reader
+            && let Ok(m) = std::fs::metadata(&canonical)
+            && let Some(msg) = extract::worker::too_large(iso, m.len())
+        {
+            self.report.failed += 1;
+            self.diag(path, Severity::Error, msg);
+            return Ok(None);
+        }
         let bytes = match std::fs::read(&canonical) {
             Ok(b) => b,
             Err(e) => {
@@ -448,7 +461,19 @@ impl Run<'_> {
             self.report.unchanged += 1;
             return Ok(None);
         }
-        let extracted = match extract::extract(&canonical, kind, &bytes, &self.cfg.extract) {
+        let read = match &self.cfg.reader {
+            Some(iso) if !matches!(kind, Kind::Text | Kind::Markdown) => {
+                extract::worker::extract_isolated(
+                    iso,
+                    &canonical,
+                    kind,
+                    bytes.len() as u64,
+                    &self.cfg.extract,
+                )
+            }
+            _ => extract::extract(&canonical, kind, &bytes, &self.cfg.extract),
+        };
+        let extracted = match read {
             Ok(x) => x,
             Err(e) => {
                 self.report.failed += 1;

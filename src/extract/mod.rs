@@ -9,6 +9,7 @@ mod eml;
 mod html;
 pub mod pdf;
 mod plain;
+pub mod worker;
 
 use crate::types::DocMeta;
 use std::path::Path;
@@ -49,7 +50,7 @@ impl Kind {
 
 /// What a file yields: pages (page 1 first), metadata found in the file,
 /// extra headers, and notes worth showing the user (not errors).
-#[derive(Debug, Clone, Default)]
+#[derive(Debug, Clone, Default, serde::Serialize, serde::Deserialize)]
 pub struct Extracted {
     pub pages: Vec<String>,
     pub meta: DocMeta,
@@ -68,6 +69,9 @@ pub enum ExtractError {
     Empty,
     #[error("not a readable e-mail message: {0}")]
     Email(String),
+    /// The separate reader process failed, ran out of time or memory.
+    #[error("{0}")]
+    Reader(String),
     /// An HTML page nested deeper than any real page.
     #[error(
         "the page nests its tags {depth} deep, more than the {max} a real page needs (broken or hostile HTML)"

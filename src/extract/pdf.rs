@@ -525,7 +525,7 @@ pub fn extract_layer(
 }
 
 /// What OCR needs to know about one page of a PDF.
-#[derive(Debug, Clone, PartialEq)]
+#[derive(Debug, Clone, PartialEq, serde::Serialize, serde::Deserialize)]
 pub struct PageDrawing {
     /// SHA-256 of what the page draws: its content streams and the raw data
     /// of the images and forms they use. Two pages with the same key render
@@ -673,14 +673,37 @@ fn load_checked(bytes: &[u8]) -> Result<Document, PdfError> {
 /// A finished child: exit status, stdout, stderr.
 pub(crate) type Finished = (std::process::ExitStatus, Vec<u8>, Vec<u8>);
 
+/// How a watched child ended.
+pub(crate) enum Ended {
+    Finished(Finished),
+    /// Killed when its time ran out.
+    TimedOut,
+    /// Killed when its resident memory passed the cap (bytes seen).
+    OverMemory(u64),
+}
+
 /// Runs `cmd` to completion, or kills it after `limit`. `input`, when given,
 /// is written to the child's standard input. Returns the exit status,
 /// stdout and stderr, or `None` on time-out.
 pub(crate) fn output_within(
-    mut cmd: Command,
+    cmd: Command,
     input: Option<Vec<u8>>,
     limit: std::time::Duration,
 ) -> std::io::Result<Option<Finished>> {
+    Ok(match output_watched(cmd, input, limit, None)? {
+        Ended::Finished(f) => Some(f),
+        _ => None,
+    })
+}
+
+/// [`output_within`], and on Linux also kills the child once its resident
+/// memory passes `rss_cap` bytes (read from /proc every 10 ms).
+pub(crate) fn output_watched(
+    mut cmd: Command,
+    input: Option<Vec<u8>>,
+    limit: std::time::Duration,
+    rss_cap: Option<u64>,
+) -> std::io::Result<Ended> {
     use std::io::Read;
     if input.is_some() {
         cmd.stdin(std::process::Stdio::piped());
@@ -691,6 +714,7 @@ pub(crate) fn output_within(
         .spawn()?;
     let writer = match (input, child.stdin.take()) {
         (Some(bytes), Some(mut stdin)) => Some(std::thread::spawn(move || {
+            use std::io::Write;
             // A child that exits early closes the pipe; that is its answer.
             let _ = stdin.write_all(&bytes);
         })),
@@ -711,12 +735,19 @@ pub(crate) fn output_within(
     let deadline = std::time::Instant::now() + limit;
     let status = loop {
         if let Some(status) = child.try_wait()? {
-            break Some(status);
+            break Ok(status);
         }
         if std::time::Instant::now() >= deadline {
             let _ = child.kill();
             let _ = child.wait();
-            break None;
+            break Err(Ended::TimedOut);
+        }
+        if let Some(cap) = rss_cap
+            && let Some(rss) = resident_bytes(child.id()).filter(|r| *r > cap)
+        {
+            let _ = child.kill();
+            let _ = child.wait();
+            break Err(Ended::OverMemory(rss));
         }
         std::thread::sleep(std::time::Duration::from_millis(10));
     };
@@ -725,7 +756,19 @@ pub(crate) fn output_within(
     }
     let stdout = out_reader.join().unwrap_or_default();
     let stderr = err_reader.join().unwrap_or_default();
-    Ok(status.map(|st| (st, stdout, stderr)))
+    Ok(match status {
+        Ok(st) => Ended::Finished((st, stdout, stderr)),
+        Err(e) => e,
+    })
+}
+
+/// A process's resident memory in bytes (Linux; `None` elsewhere or when
+/// it has gone).
+fn resident_bytes(pid: u32) -> Option<u64> {
+    let status = std::fs::read_to_string(format!("/proc/{pid}/status")).ok()?;
+    let line = status.lines().find(|l| l.starts_with("VmRSS:"))?;
+    let kb: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kb * 1024)
 }
 
 /// How long pdftotext may take on a file of `pages` pages before the file is

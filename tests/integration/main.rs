@@ -8,6 +8,7 @@ mod demo;
 mod drafting;
 mod endpoint;
 mod eval_run;
+mod faults;
 mod ingest;
 mod ocr;
 mod open_data;
