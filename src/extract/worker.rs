@@ -268,41 +268,34 @@ mod tests {
         assert_eq!(kind_named("docx"), None);
     }
 
-    #[test]
-    fn a_file_over_the_memory_allowance_is_refused_unread() {
+    /// The error of reading a `size`-byte PDF with a worker program that
+    /// does not exist, under a `memory`-byte allowance.
+    fn refusal(memory: u64, size: u64) -> String {
         let iso = Isolation {
             program: PathBuf::from("/nonexistent/reader"),
-            memory_bytes: 1 << 20,
+            memory_bytes: memory,
             time_limit: Duration::from_secs(1),
         };
-        let e = extract_isolated(
+        extract_isolated(
             &iso,
-            Path::new("big.pdf"),
+            Path::new("a.pdf"),
             Kind::Pdf,
-            3 << 20,
+            size,
             &ExtractOptions::default(),
         )
         .unwrap_err()
-        .to_string();
+        .to_string()
+    }
+
+    #[test]
+    fn a_file_over_the_memory_allowance_is_refused_unread() {
+        let e = refusal(1 << 20, 3 << 20);
         assert!(e.contains("3 MB") && e.contains("1 MB"), "{e}");
     }
 
     #[test]
     fn a_missing_worker_program_is_named() {
-        let iso = Isolation {
-            program: PathBuf::from("/nonexistent/reader"),
-            memory_bytes: 1 << 30,
-            time_limit: Duration::from_secs(1),
-        };
-        let e = extract_isolated(
-            &iso,
-            Path::new("a.pdf"),
-            Kind::Pdf,
-            10,
-            &ExtractOptions::default(),
-        )
-        .unwrap_err()
-        .to_string();
+        let e = refusal(1 << 30, 10);
         assert!(e.contains("/nonexistent/reader"), "{e}");
     }
 }

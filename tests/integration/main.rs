@@ -10,6 +10,7 @@ mod endpoint;
 mod eval_run;
 mod faults;
 mod ingest;
+mod kills;
 mod ocr;
 mod open_data;
 mod replay;
