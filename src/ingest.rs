@@ -39,6 +39,16 @@ pub struct IngestConfig {
     pub reader: Option<crate::extract::worker::Isolation>,
 }
 
+/// What a failure message adds when an earlier version of the file stays
+/// in the index.
+fn kept<T>(known: &Option<T>) -> &'static str {
+    if known.is_some() {
+        "; the version stored earlier is kept"
+    } else {
+        ""
+    }
+}
+
 /// Counts for the final summary.
 #[derive(Debug, Default, Clone, Serialize, PartialEq)]
 pub struct Report {
@@ -417,13 +427,15 @@ impl Run<'_> {
                 return Ok(None);
             }
         };
+        let source = canonical.to_string_lossy().into_owned();
+        let known = self.store.known_source(&source)?;
         // Refuse before reading: the bytes are held for hashing.
         if let Some(iso) = &self.cfg.reader
             && let Ok(m) = std::fs::metadata(&canonical)
             && let Some(msg) = extract::worker::too_large(iso, m.len())
         {
             self.report.failed += 1;
-            self.diag(path, Severity::Error, msg);
+            self.diag(path, Severity::Error, format!("{msg}{}", kept(&known)));
             return Ok(None);
         }
         let bytes = match std::fs::read(&canonical) {
@@ -455,21 +467,13 @@ impl Run<'_> {
             )
             .as_bytes(),
         );
-        let source = canonical.to_string_lossy().into_owned();
-        let known = self.store.known_source(&source)?;
         if known.as_ref().is_some_and(|k| k.ingest_key == ingest_key) {
             self.report.unchanged += 1;
             return Ok(None);
         }
         let read = match &self.cfg.reader {
             Some(iso) if !matches!(kind, Kind::Text | Kind::Markdown) => {
-                extract::worker::extract_isolated(
-                    iso,
-                    &canonical,
-                    kind,
-                    bytes.len() as u64,
-                    &self.cfg.extract,
-                )
+                extract::worker::extract_isolated(iso, &canonical, kind, &self.cfg.extract)
             }
             _ => extract::extract(&canonical, kind, &bytes, &self.cfg.extract),
         };
@@ -477,12 +481,7 @@ impl Run<'_> {
             Ok(x) => x,
             Err(e) => {
                 self.report.failed += 1;
-                let kept = if known.is_some() {
-                    "; the version stored earlier is kept"
-                } else {
-                    ""
-                };
-                self.diag(path, Severity::Error, format!("{e}{kept}"));
+                self.diag(path, Severity::Error, format!("{e}{}", kept(&known)));
                 return Ok(None);
             }
         };
@@ -719,11 +718,7 @@ impl Run<'_> {
         }
         if extracted.pages.iter().all(|p| p.trim().is_empty()) {
             self.report.failed += 1;
-            let kept = if known.is_some() {
-                "; the version stored earlier is kept"
-            } else {
-                ""
-            };
+            let kept = kept(&known);
             let why = if kind != Kind::Pdf {
                 "the file is empty (no text)".to_string()
             } else if !blank.is_empty() && blank.len() == extracted.pages.len() {

@@ -78,7 +78,9 @@ pub enum ExtractError {
     )]
     TooDeep { depth: usize, max: usize },
     /// A text, Markdown or HTML file whose bytes are not text.
-    #[error("the file holds binary data, not text (a NUL byte in its first {BINARY_PROBE} bytes)")]
+    #[error(
+        "the file holds binary data, not text (a NUL byte in its first {BINARY_PROBE} bytes); check that its extension is right"
+    )]
     Binary,
 }
 
@@ -174,7 +176,7 @@ fn pdf_with_fallback(
                     pages,
                     Vec::new(),
                     vec![format!(
-                        "damaged PDF ({first}); read by pdftotext, which repaired its structure; its pages were not checked for OCR"
+                        "damaged PDF ({first}): read with pdftotext, which repaired it; scanned pages in it, if any, were not read by OCR"
                     )],
                 )),
                 Err(_) => Err(PdfError::Corrupt(first)),

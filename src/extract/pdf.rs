@@ -714,7 +714,6 @@ pub(crate) fn output_watched(
         .spawn()?;
     let writer = match (input, child.stdin.take()) {
         (Some(bytes), Some(mut stdin)) => Some(std::thread::spawn(move || {
-            use std::io::Write;
             // A child that exits early closes the pipe; that is its answer.
             let _ = stdin.write_all(&bytes);
         })),

@@ -29,8 +29,8 @@ pub const COMMAND: &str = "read-one";
 pub struct Isolation {
     /// The program that serves [`COMMAND`] (the onrecord binary itself).
     pub program: PathBuf,
-    /// Most bytes of address space the reader may use; a file larger than
-    /// this is refused without being read.
+    /// Most resident memory, in bytes, reading one file may use; a file
+    /// larger than this is refused without being read.
     pub memory_bytes: u64,
     /// Most time the reader may take for one file.
     pub time_limit: Duration,
@@ -77,25 +77,21 @@ fn mib(bytes: u64) -> u64 {
 pub fn too_large(iso: &Isolation, size: u64) -> Option<String> {
     (size > iso.memory_bytes).then(|| {
         format!(
-            "the file is {} MB, more than the reader's memory allowance of {} MB (raise it with --reader-memory)",
+            "the file is {} MB, more than the {} MB of memory allowed for reading one file, so it was not read (raise the limit with --reader-memory)",
             mib(size),
             mib(iso.memory_bytes)
         )
     })
 }
 
-/// Read `path` in a worker process under `iso`'s allowances. `size` is the
-/// file's length in bytes.
+/// Read `path` in a worker process under `iso`'s allowances (the caller
+/// has refused a file [`too_large`] for them).
 pub fn extract_isolated(
     iso: &Isolation,
     path: &Path,
     kind: Kind,
-    size: u64,
     opts: &ExtractOptions,
 ) -> Result<Extracted, ExtractError> {
-    if let Some(msg) = too_large(iso, size) {
-        return Err(ExtractError::Reader(msg));
-    }
     let mut cmd = Command::new(&iso.program);
     cmd.arg(COMMAND)
         .arg("--kind")
@@ -111,7 +107,7 @@ pub fn extract_isolated(
     let ended = super::pdf::output_watched(cmd, None, iso.time_limit, Some(iso.memory_bytes))
         .map_err(|e| {
             ExtractError::Reader(format!(
-                "could not start the reader process {}: {e}",
+                "could not start onrecord's file reader ({}): {e}",
                 iso.program.display()
             ))
         })?;
@@ -119,7 +115,7 @@ pub fn extract_isolated(
         Ended::Finished(f) => f,
         Ended::TimedOut => {
             return Err(ExtractError::Reader(format!(
-                "reading it took longer than the {} s allowed, so it was stopped (raise it with --reader-seconds)",
+                "reading it took longer than the {} s allowed, so it was stopped (raise the limit with --reader-seconds)",
                 iso.time_limit.as_secs()
             )));
         }
@@ -135,7 +131,7 @@ pub fn extract_isolated(
 
 fn over_memory(iso: &Isolation, seen: Option<u64>) -> String {
     format!(
-        "reading it needed more than the {} MB of memory allowed{}, so it was stopped (raise it with --reader-memory)",
+        "reading it needed more than the {} MB of memory allowed{}, so it was stopped (raise the limit with --reader-memory)",
         mib(iso.memory_bytes),
         seen.map(|b| format!(" ({} MB when stopped)", mib(b)))
             .unwrap_or_default()
@@ -149,14 +145,15 @@ fn crash_reason(status: std::process::ExitStatus, stderr: &[u8], iso: &Isolation
         return over_memory(iso, None);
     }
     if err.contains("stack overflow") {
-        return "the file is nested too deeply to read (the reader overflowed its stack)".into();
+        return "the file is nested too deeply to read (the file reader overflowed its stack)"
+            .into();
     }
     #[cfg(unix)]
     {
         use std::os::unix::process::ExitStatusExt;
         if let Some(sig) = status.signal() {
             return format!(
-                "the reader crashed on this file (signal {sig}); it may need more than the {} MB of memory allowed (--reader-memory)",
+                "the file reader crashed on this file (signal {sig}); it may need more than the {} MB of memory allowed (raise the limit with --reader-memory)",
                 mib(iso.memory_bytes)
             );
         }
@@ -167,7 +164,7 @@ fn crash_reason(status: std::process::ExitStatus, stderr: &[u8], iso: &Isolation
         .find(|l| !l.trim().is_empty())
         .unwrap_or("");
     format!(
-        "the reader failed on this file ({status}){}",
+        "the file reader failed on this file ({status}){}",
         if last.is_empty() {
             String::new()
         } else {
@@ -268,34 +265,25 @@ mod tests {
         assert_eq!(kind_named("docx"), None);
     }
 
-    /// The error of reading a `size`-byte PDF with a worker program that
-    /// does not exist, under a `memory`-byte allowance.
-    fn refusal(memory: u64, size: u64) -> String {
-        let iso = Isolation {
+    #[test]
+    fn a_file_over_the_memory_allowance_is_refused_unread() {
+        let iso = |memory_bytes| Isolation {
             program: PathBuf::from("/nonexistent/reader"),
-            memory_bytes: memory,
+            memory_bytes,
             time_limit: Duration::from_secs(1),
         };
-        extract_isolated(
-            &iso,
+        let e = too_large(&iso(1 << 20), 3 << 20).unwrap();
+        assert!(e.contains("3 MB") && e.contains("1 MB"), "{e}");
+        assert_eq!(too_large(&iso(1 << 20), 1 << 20), None);
+        // A worker program that cannot start is named.
+        let e = extract_isolated(
+            &iso(1 << 30),
             Path::new("a.pdf"),
             Kind::Pdf,
-            size,
             &ExtractOptions::default(),
         )
         .unwrap_err()
-        .to_string()
-    }
-
-    #[test]
-    fn a_file_over_the_memory_allowance_is_refused_unread() {
-        let e = refusal(1 << 20, 3 << 20);
-        assert!(e.contains("3 MB") && e.contains("1 MB"), "{e}");
-    }
-
-    #[test]
-    fn a_missing_worker_program_is_named() {
-        let e = refusal(1 << 30, 10);
+        .to_string();
         assert!(e.contains("/nonexistent/reader"), "{e}");
     }
 }
