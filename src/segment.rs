@@ -1711,9 +1711,9 @@ mod tests {
             ],
         ),
         (
-            "The Hon. Jane Doe of St. Catharines objected. She asked for a vote.",
+            "The Hon. Jane Doe of St. Aubrel objected. She asked for a vote.",
             &[
-                "The Hon. Jane Doe of St. Catharines objected.",
+                "The Hon. Jane Doe of St. Aubrel objected.",
                 "She asked for a vote.",
             ],
         ),
@@ -1733,14 +1733,14 @@ mod tests {
             ],
         ),
         (
-            "Pursuant to s. 12(3) FOIPPA and ss. 4-6 MFIPPA, see p. 7 Appendix B and pp. 3-4 Table 2.",
+            "Pursuant to s. 12(3) KARA and ss. 4-6 KMRA, see p. 7 Appendix B and pp. 3-4 Table 2.",
             &[
-                "Pursuant to s. 12(3) FOIPPA and ss. 4-6 MFIPPA, see p. 7 Appendix B and pp. 3-4 Table 2.",
+                "Pursuant to s. 12(3) KARA and ss. 4-6 KMRA, see p. 7 Appendix B and pp. 3-4 Table 2.",
             ],
         ),
         (
-            "Several cities, e.g. Toronto and Ottawa, i.e. Ontario members, replied.",
-            &["Several cities, e.g. Toronto and Ottawa, i.e. Ontario members, replied."],
+            "Several cities, e.g. Dunmarrow and Vessane, i.e. Kestrava members, replied.",
+            &["Several cities, e.g. Dunmarrow and Vessane, i.e. Kestrava members, replied."],
         ),
         (
             "Bring forms, receipts, etc. the clerk files them. Bring forms, receipts, etc. The clerk files them.",
@@ -1751,9 +1751,9 @@ mod tests {
             ],
         ),
         (
-            "The contract between Acme Ltd. Canada, Widget Inc. Ottawa, Big Corp. Halifax and Smith & Co. Dublin was signed.",
+            "The contract between Acme Ltd. Kestrava, Widget Inc. Vessane, Big Corp. Tollmere and Smith & Co. Brevane was signed.",
             &[
-                "The contract between Acme Ltd. Canada, Widget Inc. Ottawa, Big Corp. Halifax and Smith & Co. Dublin was signed.",
+                "The contract between Acme Ltd. Kestrava, Widget Inc. Vessane, Big Corp. Tollmere and Smith & Co. Brevane was signed.",
             ],
         ),
         (
@@ -1919,9 +1919,9 @@ mod tests {
             ],
         ),
         (
-            "From: Jane Smith <jane.smith@city.gov>\nSent: Monday, January 5, 2015 10:00 AM\nTo: Bob Jones\nCc: Finance Team\nSubject: Re: Budget approval\n\nBob,\n\nThe budget was approved by the\ncouncil on Jan. 5. Please file it.\n\nRegards,\nJane",
+            "From: Jane Smith <jane.smith@city.example>\nSent: Monday, January 5, 2015 10:00 AM\nTo: Bob Jones\nCc: Finance Team\nSubject: Re: Budget approval\n\nBob,\n\nThe budget was approved by the\ncouncil on Jan. 5. Please file it.\n\nRegards,\nJane",
             &[
-                "From: Jane Smith <jane.smith@city.gov>",
+                "From: Jane Smith <jane.smith@city.example>",
                 "Sent: Monday, January 5, 2015 10:00 AM",
                 "To: Bob Jones",
                 "Cc: Finance Team",

@@ -90,14 +90,14 @@ mod tests {
             ("  an  Apple,  a day ", "apple day"),
             ("Theatre", "theatre"),
             ("$1,400,000", "1400000"),
-            ("Denver Broncos", "denver broncos"),
+            ("Vessane Gulls", "vessane gulls"),
             ("the", ""),
         ];
         for (input, want) in norm {
             assert_eq!(normalize_answer(input), want, "{input}");
         }
-        assert_eq!(exact_match("the Denver Broncos", "Denver Broncos!"), 1.0);
-        assert_eq!(exact_match("Broncos", "Denver Broncos"), 0.0);
+        assert_eq!(exact_match("the Vessane Gulls", "Vessane Gulls!"), 1.0);
+        assert_eq!(exact_match("Gulls", "Vessane Gulls"), 0.0);
         // prediction {cat, sat}, gold {cat, sat, on, mat}: P = 1, R = 1/2.
         assert!((f1("the cat sat", "a cat sat on the mat") - 2.0 / 3.0).abs() < 1e-12);
         // Multiplicity: prediction {to, to, be}, gold {to, be}: 2 shared;
@@ -105,9 +105,9 @@ mod tests {
         assert!((f1("to to be", "to be") - 0.8).abs() < 1e-12);
         assert_eq!(f1("nothing shared", "other words"), 0.0);
         assert_eq!(f1("", "gold"), 0.0);
-        let golds = vec!["Denver Broncos".to_string(), "Broncos".to_string()];
-        assert_eq!(best_over(exact_match, "broncos", &golds), 1.0);
-        assert!(contains_answer("In 2016 the Denver Broncos won.", &golds));
-        assert!(!contains_answer("The Broncostadium.", &["Broncos".into()]));
+        let golds = vec!["Vessane Gulls".to_string(), "Gulls".to_string()];
+        assert_eq!(best_over(exact_match, "gulls", &golds), 1.0);
+        assert!(contains_answer("In 2016 the Vessane Gulls won.", &golds));
+        assert!(!contains_answer("The Gullstadium.", &["Gulls".into()]));
     }
 }
