@@ -1,5 +1,5 @@
 //! Ask: retrieve → draft → verify, and the versioned answer record that
-//! `ask --json` prints and later tools replay.
+//! `answer --json` prints and later tools replay.
 //!
 //! Answer record, schema version 1 (see `eval/answer-record.schema.json`):
 //! `schema_version`, `onrecord_version`, `created_at`, `question`, `config`
@@ -728,136 +728,100 @@ fn civil_from_days(z: i64) -> (i64, u32, u32) {
     (if m <= 2 { y + 1 } else { y }, m, d)
 }
 
-/// Render an answer as a reporter reads it in a terminal.
+/// Render an answer as a reporter reads it in a terminal: a ledger in
+/// which every verified sentence is followed by the words that prove it
+/// and where they are (`doc-id · p. N`), so claim and evidence are read
+/// together. Sentences that are not answers, and struck ones, follow in
+/// sections of their own, each with its reason.
 pub fn render_text(a: &AnswerRecord) -> String {
     use std::fmt::Write;
     let mut out = String::new();
-    let _ = writeln!(out, "Question: {}\n", a.question);
+    let _ = writeln!(out, "Asked: {}", a.question);
     if !a.queries.is_empty() {
-        let _ = writeln!(out, "Also searched for: {}\n", a.queries.join(" | "));
+        let _ = writeln!(out, "Also looked for: {}", a.queries.join(" | "));
     }
     if let Some(fb) = a.draft.as_ref().and_then(|d| d.fallback.as_deref()) {
-        let _ = writeln!(out, "{}\n", wrap(&format!("Note: {fb}."), 78));
+        let _ = writeln!(out, "\n{}", wrap(&format!("Note: {fb}."), 78));
     }
-    // Footnote numbers: one per distinct (doc, page, quote).
-    let mut notes: Vec<&crate::types::Citation> = Vec::new();
     if a.abstained {
         let _ = writeln!(
             out,
-            "No answer: {}.",
-            a.abstain_reason
-                .as_deref()
-                .unwrap_or("the retrieved records do not answer this question")
+            "\n{}",
+            wrap(
+                &format!(
+                    "Not answered: {}.",
+                    a.abstain_reason
+                        .as_deref()
+                        .unwrap_or("the retrieved records do not answer this question")
+                ),
+                78
+            )
         );
         if !a.closest.is_empty() {
             let _ = writeln!(
                 out,
-                "\nClosest sentences in the records (not answers; check them yourself):"
+                "\nNEAREST IN THE RECORDS: not answers; read them yourself\n"
             );
             for c in &a.closest {
-                let _ = writeln!(out, "  - \u{201C}{}\u{201D}", c.text);
+                let _ = writeln!(out, "   \u{201C}{}\u{201D}", c.text);
                 if let Some(cit) = c.citations.first() {
-                    let _ = writeln!(
-                        out,
-                        "      {} ({}, {}): {}",
-                        cit.title,
-                        cit.doc_id,
-                        pages_label(cit),
-                        c.why_not
-                    );
+                    let _ = writeln!(out, "      from    {}", whereabouts(cit));
                 }
+                let _ = writeln!(out, "      not     {}\n", c.why_not);
             }
         } else if !a.retrieved.is_empty() {
-            let _ = writeln!(out, "\nClosest records (not quoted, check them yourself):");
+            let _ = writeln!(
+                out,
+                "\nNEAREST RECORDS: nothing quoted; read them yourself\n"
+            );
             let mut seen = Vec::new();
             for r in a.retrieved.iter() {
                 if seen.contains(&&r.doc_id) {
                     continue;
                 }
                 seen.push(&r.doc_id);
-                let _ = writeln!(out, "  - {} ({}, p. {})", r.title, r.doc_id, r.page);
+                let _ = writeln!(
+                    out,
+                    "   {} \u{00B7} p. {} \u{2014} {}",
+                    r.doc_id, r.page, r.title
+                );
                 if seen.len() == 3 {
                     break;
                 }
             }
         }
     } else {
-        let _ = writeln!(out, "Answer");
-        for s in a.supported() {
-            let m = footnote_marks(s, &mut notes);
-            let _ = writeln!(out, "  {} {m}", s.text);
-        }
-        let _ = writeln!(out, "\nSources");
-        for (i, c) in notes.iter().enumerate() {
-            let mut head = c.title.clone();
-            if let Some(o) = &c.organisation {
-                head.push_str(&format!(" — {o}"));
+        let held: Vec<&VerifiedSentence> = a.supported().collect();
+        let _ = writeln!(
+            out,
+            "\nON THE RECORD: {}, above the words that prove it\n",
+            match held.len() {
+                1 => "1 sentence".to_string(),
+                n => format!("{n} sentences, each"),
             }
-            if let Some(d) = &c.date {
-                head.push_str(&format!(", {d}"));
+        );
+        for (i, s) in held.iter().enumerate() {
+            let _ = writeln!(out, "{:>2}  {}", i + 1, s.text);
+            for c in &s.citations {
+                evidence_lines(&mut out, c);
             }
-            let pages = pages_label(c);
-            let _ = writeln!(out, "  [{}] {head}, {pages} ({})", i + 1, c.doc_id);
-            match &c.quoted_as {
-                Some(q) => {
-                    let _ = writeln!(out, "      quoted as  \u{201C}{q}\u{201D}");
-                    let _ = writeln!(
-                        out,
-                        "      page reads \u{201C}{}\u{201D}{}",
-                        c.quote,
-                        if c.similarity < 1.0 {
-                            format!(" (match {:.0}%)", c.similarity * 100.0)
-                        } else {
-                            String::new()
-                        }
-                    );
-                }
-                None => {
-                    let _ = writeln!(out, "      \u{201C}{}\u{201D}", c.quote);
-                }
-            }
-            if c.corrected_from.is_some() {
-                let _ = writeln!(
-                    out,
-                    "      (citation corrected: the drafter pointed to another passage; the quote is here)"
-                );
-            }
-            if let Some(o) = &c.ocr {
-                match o.warning() {
-                    Some(w) => {
-                        let _ = writeln!(out, "      ! {w}");
-                    }
-                    None => {
-                        let _ = writeln!(
-                            out,
-                            "      (page read by OCR; confidence {:.0}% on this span)",
-                            o.confidence
-                        );
-                    }
-                }
-            }
+            let _ = writeln!(out);
         }
     }
     if !a.off_question.is_empty() {
         let _ = writeln!(
             out,
-            "\nSupported by the records, but not an answer to this question ({})",
+            "\nTRUE TO THE RECORDS, BUT NOT AN ANSWER TO THIS QUESTION ({})\n",
             a.off_question.len()
         );
         for s in &a.off_question {
-            let _ = writeln!(out, "  ~ \u{201C}{}\u{201D}", s.text);
+            let _ = writeln!(out, "   \u{201C}{}\u{201D}", s.text);
             if let Some(cit) = s.citations.first() {
-                let _ = writeln!(
-                    out,
-                    "      {} ({}, {})",
-                    cit.title,
-                    cit.doc_id,
-                    pages_label(cit)
-                );
+                let _ = writeln!(out, "      from    {}", whereabouts(cit));
             }
             let _ = writeln!(
                 out,
-                "      why: {}",
+                "      why     {}\n",
                 s.reason.as_deref().unwrap_or("not about what was asked")
             );
         }
@@ -867,18 +831,89 @@ pub fn render_text(a: &AnswerRecord) -> String {
         struck.extend(d.verdicts.iter().filter(|s| s.verdict == Verdict::Struck));
     }
     if !struck.is_empty() {
-        let _ = writeln!(out, "\nStruck by the verifier ({})", struck.len());
+        let _ = writeln!(
+            out,
+            "\nSTRUCK BY THE VERIFIER ({}): drafted, not proved, left out\n",
+            struck.len()
+        );
         for s in struck {
             let _ = writeln!(
                 out,
-                "  x \u{201C}{}\u{201D}\n      reason: {}",
+                "   \u{2717} {}\n      why     {}\n",
                 s.text,
                 s.reason.as_deref().unwrap_or("not supported")
             );
         }
     }
-    let _ = writeln!(out, "\n{}", wrap(&format!("Caution: {CAUTION}"), 78));
+    let _ = writeln!(out, "{}", wrap(&format!("Caution: {CAUTION}"), 78));
+    // Sections end in a blank line and start after one: never two.
+    while out.contains("\n\n\n") {
+        out = out.replace("\n\n\n", "\n\n");
+    }
     out
+}
+
+/// The evidence under a verified sentence: the page's words, where they
+/// are, and any doubt about them (OCR, a corrected citation).
+fn evidence_lines(out: &mut String, c: &Citation) {
+    use std::fmt::Write;
+    match &c.quoted_as {
+        Some(q) => {
+            let _ = writeln!(
+                out,
+                "    page reads \u{201C}{}\u{201D}{}",
+                c.quote,
+                if c.similarity < 1.0 {
+                    format!(" (match {:.0}%)", c.similarity * 100.0)
+                } else {
+                    String::new()
+                }
+            );
+            let _ = writeln!(out, "    quoted as  \u{201C}{q}\u{201D}");
+        }
+        None => {
+            let _ = writeln!(out, "    proof   \u{201C}{}\u{201D}", c.quote);
+        }
+    }
+    let _ = writeln!(out, "    from    {}", whereabouts(c));
+    if c.corrected_from.is_some() {
+        let _ = writeln!(
+            out,
+            "    note    the drafter cited another passage; the quote is here"
+        );
+    }
+    if let Some(o) = &c.ocr {
+        match o.warning() {
+            Some(w) => {
+                let _ = writeln!(out, "    ! {w}");
+            }
+            None => {
+                let _ = writeln!(
+                    out,
+                    "    ocr     page read by OCR; confidence {:.0}% on this span",
+                    o.confidence
+                );
+            }
+        }
+    }
+}
+
+/// `doc-id · p. N — title, organisation, date`: the short reference first,
+/// so it can be copied, then what the document is.
+fn whereabouts(c: &Citation) -> String {
+    let mut s = format!(
+        "{} \u{00B7} {} \u{2014} {}",
+        c.doc_id,
+        pages_label(c),
+        c.title
+    );
+    if let Some(o) = &c.organisation {
+        s.push_str(&format!(", {o}"));
+    }
+    if let Some(d) = &c.date {
+        s.push_str(&format!(", {d}"));
+    }
+    s
 }
 
 /// "p. 3" or "pp. 3-4" for a citation.
@@ -887,28 +922,6 @@ fn pages_label(c: &Citation) -> String {
         Some(e) if e != c.page => format!("pp. {}-{e}", c.page),
         _ => format!("p. {}", c.page),
     }
-}
-
-/// Footnote markers for a sentence's citations, numbering new sources in order.
-fn footnote_marks<'a>(
-    s: &'a VerifiedSentence,
-    notes: &mut Vec<&'a crate::types::Citation>,
-) -> String {
-    let mut m = String::new();
-    for cit in &s.citations {
-        let n = match notes
-            .iter()
-            .position(|x| x.doc_id == cit.doc_id && x.page == cit.page && x.quote == cit.quote)
-        {
-            Some(i) => i + 1,
-            None => {
-                notes.push(cit);
-                notes.len()
-            }
-        };
-        m.push_str(&format!("[{n}]"));
-    }
-    m
 }
 
 /// Greedy word wrap for terminal prose.

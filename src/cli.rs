@@ -24,13 +24,20 @@ use std::sync::Arc;
 
 const AFTER_HELP: &str = "\
 Typical session:
-  onrecord ingest ./release-2023-0412 --manifest ./release-2023-0412/manifest.csv
-  onrecord search \"Pier 3 budget\" --from 2020 --org harbour
-  onrecord ask \"How much did the Pier 3 budget increase in 2021?\" --markdown > answer.md
+  onrecord add ./release-2023-0412 --manifest ./release-2023-0412/manifest.csv
+  onrecord find \"Pier 3 budget\" --from 2020 --org harbour
+  onrecord answer \"How much did the Pier 3 budget increase in 2021?\" --markdown > answer.md
   onrecord replay answer.md            # weeks later: does every sentence still hold?
 
+Words used here:
+  records   the documents of a release, as `add` stores them
+  passages  the page-aware pieces of text that `find` lists and `answer` reads
+            (how many: --passages N)
+  proof     the words on the page printed under each sentence `answer` gives,
+            with where they are: doc-id · p. N
+
 The index lives in ./.onrecord unless --index or ONRECORD_INDEX says otherwise.
-Exit codes: 0 success; 1 an error, or (ingest) a file that failed, or (replay)
+Exit codes: 0 success; 1 an error, or (add) a file that failed, or (replay)
 a sentence that no longer holds; 2 bad arguments, or (replay) unusable input.";
 
 /// Answer questions from released records with sentences that verbatim
@@ -44,7 +51,7 @@ struct Cli {
     #[arg(short, long, action = clap::ArgAction::Count, global = true)]
     verbose: u8,
     /// Embedding model: `auto` (the default model if it is on this machine),
-    /// `off` (BM25 only), a model folder, or a repository id already pulled.
+    /// `off` (BM25 only), a model folder, or a repository id already fetched.
     #[arg(
         long,
         global = true,
@@ -97,7 +104,7 @@ struct DraftArgs {
     drafter: Option<DrafterArg>,
     /// Local model for `--drafter local` and `--rewrite`: `auto` (the default
     /// SmolLM2-135M-Instruct from the models folder or the hub cache), a
-    /// .gguf file, a folder holding one, or a repository id already pulled.
+    /// .gguf file, a folder holding one, or a repository id already fetched.
     /// Llama-family, Qwen2 and Qwen3 files are supported. [default: auto]
     #[arg(long, env = "ONRECORD_LLM", value_name = "auto|FILE|DIR")]
     llm: Option<LlmChoice>,
@@ -261,7 +268,7 @@ struct RetrievalArgs {
     #[arg(long)]
     feedback: bool,
     /// Find passages by their closest sentence as well as by their whole
-    /// text, with the sentence vectors ingest already stores (the first
+    /// text, with the sentence vectors `add` already stores (the first
     /// search takes about a second per 10,000 sentences to prepare them).
     #[arg(long)]
     sentence_vectors: bool,
@@ -408,10 +415,10 @@ enum OcrModeArg {
     Never,
 }
 
-/// How `ask` and `replay` print their result.
+/// How `answer` and `replay` print their result.
 #[derive(Args, Debug, Clone, Copy)]
 struct ExportArgs {
-    /// Print the versioned record as JSON: the answer record (`ask`, with a
+    /// Print the versioned record as JSON: the answer record (`answer`, with a
     /// model's raw draft and the verdicts on it) or the replay report.
     #[arg(long, conflicts_with_all = ["csv", "markdown"])]
     json: bool,
@@ -462,7 +469,7 @@ enum Command {
     /// OCR is flagged later. OCR results are cached in the index by what the
     /// page draws: re-ingesting never reads a page twice. Without tesseract
     /// the other pages are still ingested, and the run says how to install it.
-    Ingest {
+    Add {
         /// Files or folders.
         #[arg(required = true, value_name = "PATH")]
         paths: Vec<PathBuf>,
@@ -519,9 +526,9 @@ enum Command {
     ///
     /// BM25 finds the words you typed; the embedding model finds other
     /// wordings of the same thing; hybrid (the default when the model is
-    /// present) fuses both rankings. --explain shows each retriever's rank
+    /// present) fuses both rankings. --why shows each retriever's rank
     /// and score beside the fused score.
-    Search {
+    Find {
         /// What to look for.
         query: String,
         #[command(flatten)]
@@ -530,17 +537,18 @@ enum Command {
         filters: FilterArgs,
         #[command(flatten)]
         retrieval: RetrievalArgs,
-        /// How many passages.
-        #[arg(short, long, default_value_t = 10)]
+        /// How many passages to list.
+        #[arg(long = "passages", default_value_t = 10, value_name = "N")]
         k: usize,
         /// Show why each passage was returned: each retriever's rank and score.
-        #[arg(long)]
+        #[arg(long = "why")]
         explain: bool,
         #[arg(long)]
         json: bool,
     },
     /// Answer a question with verified, quoted sentences and page references.
-    Ask {
+    Answer {
+        /// The question, in your own words.
         question: String,
         #[command(flatten)]
         index: IndexArg,
@@ -548,8 +556,8 @@ enum Command {
         filters: FilterArgs,
         #[command(flatten)]
         retrieval: RetrievalArgs,
-        /// How many passages to retrieve.
-        #[arg(short, long, default_value_t = 10)]
+        /// How many passages to read for the answer.
+        #[arg(long = "passages", default_value_t = 10, value_name = "N")]
         k: usize,
         /// Most sentences in the answer.
         #[arg(long, default_value_t = 3)]
@@ -569,10 +577,10 @@ enum Command {
         #[command(flatten)]
         export: ExportArgs,
     },
-    /// List the answers logged by `ask`, newest first.
+    /// List the answers logged by `answer`, newest first.
     ///
     /// Every answer is kept in the index with its question, configuration
-    /// and full record, through re-ingest and reindex. Check one again with
+    /// and full record, through re-adding and reindex. Check one again with
     /// `onrecord replay --id N`.
     History {
         #[command(flatten)]
@@ -586,7 +594,7 @@ enum Command {
     /// Check a saved answer, or a footnoted draft, again: sentence by
     /// sentence, against the pages as they are now.
     ///
-    /// Reads JSON from `ask --json`, Markdown from `ask --markdown` (or a
+    /// Reads JSON from `answer --json`, Markdown from `answer --markdown` (or a
     /// draft written with the same footnotes), or an answer from the log
     /// (--id). Each sentence: holds; fails (with the reason); source
     /// changed (the page's content differs from its fingerprint, with the
@@ -596,10 +604,10 @@ enum Command {
     /// source changed or is missing; 2 the answer or the sources could not
     /// be used (nothing was checked).
     #[command(
-        after_help = "Examples:\n  onrecord ask \"...\" --markdown > answer.md\n  onrecord replay answer.md\n  onrecord replay answer.md --sources ./release-2023-0412\n  onrecord replay --id 12 --csv > checked.csv"
+        after_help = "Examples:\n  onrecord answer \"...\" --markdown > answer.md\n  onrecord replay answer.md\n  onrecord replay answer.md --sources ./release-2023-0412\n  onrecord replay --id 12 --csv > checked.csv"
     )]
     Replay {
-        /// The answer: JSON from `ask --json`, or Markdown with footnotes.
+        /// The answer: JSON from `answer --json`, or Markdown with footnotes.
         #[arg(
             required_unless_present = "id",
             conflicts_with = "id",
@@ -620,7 +628,7 @@ enum Command {
         /// Manifest giving the document ids of the files under --sources.
         #[arg(long, value_name = "FILE", requires = "sources")]
         manifest: Option<PathBuf>,
-        /// How to read PDFs under --sources: as the index was ingested, so
+        /// How to read PDFs under --sources: as the index was built, so
         /// that page fingerprints agree.
         #[arg(long, value_enum, default_value_t = PdfRouteArg::Auto, requires = "sources")]
         pdf_reader: PdfRouteArg,
@@ -630,8 +638,8 @@ enum Command {
         #[command(flatten)]
         export: ExportArgs,
     },
-    /// List the documents in the index.
-    Docs {
+    /// List the records (documents) in the index.
+    Records {
         #[command(flatten)]
         index: IndexArg,
         #[command(flatten)]
@@ -639,8 +647,8 @@ enum Command {
         #[arg(long)]
         json: bool,
     },
-    /// Build the bundled demo release (invented records), ingest it, and ask
-    /// three sample questions.
+    /// Build the bundled demo release (invented records), add it to an
+    /// index, and answer three sample questions.
     Demo {
         /// Demo sources (default: eval/demo).
         #[arg(long, value_name = "DIR")]
@@ -652,10 +660,11 @@ enum Command {
         #[arg(long)]
         json: bool,
     },
-    /// Serve onrecord's page and HTTP JSON API to a browser on this computer.
+    /// Open onrecord's page and HTTP JSON API to a browser on this computer.
     ///
-    /// Open the address it prints: ask with filters, read each verified
-    /// sentence with its quote and page, open the page with the quote marked,
+    /// Open the address it prints: put a question with filters, read each
+    /// verified sentence with its evidence beneath it (the quote, then
+    /// `doc-id · p. N`), unfold the page under it with the quote marked,
     /// see what was struck and why, download the answer (Markdown, CSV, JSON)
     /// and check an earlier answer again. Everything the page needs is inside
     /// onrecord; it fetches nothing from elsewhere.
@@ -665,10 +674,10 @@ enum Command {
     /// must then carry: the printed address ends in ?token=..., and API
     /// clients send "Authorization: Bearer TOKEN". Records may be sensitive:
     /// think before opening the server to a network.
-    Serve {
+    Web {
         #[command(flatten)]
         index: IndexArg,
-        /// Serve the bundled demo release (built under .onrecord-demo when needed).
+        /// Open the bundled demo release (built under .onrecord-demo when needed).
         #[arg(long)]
         demo: bool,
         /// Address and port to listen on.
@@ -695,7 +704,7 @@ enum Command {
     #[command(subcommand)]
     Train(TrainCommand),
     /// Read one file and print its text as one JSON line (the worker
-    /// process ingest runs for each PDF, HTML page and e-mail).
+    /// process `add` runs for each PDF, HTML page and e-mail).
     #[command(name = "read-one", hide = true)]
     ReadOne {
         #[arg(long)]
@@ -730,7 +739,7 @@ enum ModelsCommand {
     /// Download a model from the model hub into its standard cache
     /// (HF_HOME, else ~/.cache/huggingface). Afterwards pass the same id,
     /// or the folder printed, to --embedder.
-    Pull {
+    Fetch {
         /// Repository id, such as sentence-transformers/all-MiniLM-L6-v2 or
         /// HuggingFaceTB/SmolLM2-135M-Instruct-GGUF.
         repo_id: String,
@@ -742,7 +751,7 @@ enum ModelsCommand {
         json: bool,
     },
     /// Where the default model is looked for, and which embedder would load.
-    List {
+    Where {
         #[arg(long)]
         json: bool,
     },
@@ -1032,7 +1041,7 @@ pub fn run() -> Result<ExitCode> {
             let code = worker::serve_one(&path, kind, route, memory_bytes);
             Ok(ExitCode::from(code as u8))
         }
-        Command::Ingest {
+        Command::Add {
             paths,
             index,
             manifest,
@@ -1092,7 +1101,7 @@ pub fn run() -> Result<ExitCode> {
             let progress = cfg.progress;
             cmd_ingest(&index.index, &paths, &cfg, &choice, progress, json)
         }
-        Command::Search {
+        Command::Find {
             query,
             index,
             filters,
@@ -1105,7 +1114,7 @@ pub fn run() -> Result<ExitCode> {
             let idx = open_index(&index.index, &choice, &opts)?;
             cmd_search(&idx, &query, &filters.resolve(), k, explain, json)
         }
-        Command::Ask {
+        Command::Answer {
             question,
             index,
             filters,
@@ -1207,7 +1216,7 @@ pub fn run() -> Result<ExitCode> {
                 format,
             )
         }
-        Command::Docs {
+        Command::Records {
             index,
             filters,
             json,
@@ -1217,7 +1226,7 @@ pub fn run() -> Result<ExitCode> {
             workdir,
             json,
         } => cmd_demo(source, &workdir, &choice, json),
-        Command::Serve {
+        Command::Web {
             index,
             demo,
             bind,
@@ -1230,12 +1239,12 @@ pub fn run() -> Result<ExitCode> {
             !quiet && !json && std::io::stderr().is_terminal(),
             json,
         ),
-        Command::Models(ModelsCommand::Pull {
+        Command::Models(ModelsCommand::Fetch {
             repo_id,
             file,
             json,
         }) => {
-            let dir = embed::hub::pull(
+            let dir = embed::hub::fetch(
                 &repo_id,
                 file.as_deref(),
                 !json && std::io::stderr().is_terminal(),
@@ -1273,7 +1282,7 @@ pub fn run() -> Result<ExitCode> {
             }
             Ok(ExitCode::SUCCESS)
         }
-        Command::Models(ModelsCommand::List { json }) => cmd_models_list(&choice, json),
+        Command::Models(ModelsCommand::Where { json }) => cmd_models_list(&choice, json),
         Command::Bench(BenchCommand::Embed { beir_corpus, limit }) => {
             let r = embed::resolve(&choice)?;
             let Some(e) = r.embedder else {
@@ -2419,7 +2428,7 @@ fn cmd_history(index: &std::path::Path, limit: usize, json: bool) -> Result<Exit
     }
     if log.is_empty() {
         println!(
-            "No answers logged in {} yet; every `onrecord ask` is logged.",
+            "No answers logged in {} yet; every `onrecord answer` is logged.",
             index.display()
         );
         return Ok(ExitCode::SUCCESS);
@@ -2745,7 +2754,7 @@ fn cmd_docs(index: &std::path::Path, filters: &Filters, json: bool) -> Result<Ex
     Ok(ExitCode::SUCCESS)
 }
 
-/// Build and ingest the demo release, printing what went wrong with any file.
+/// Build the demo release and add it to an index, printing what went wrong with any file.
 fn demo_index(
     source: &std::path::Path,
     workdir: &std::path::Path,
@@ -2753,8 +2762,27 @@ fn demo_index(
 ) -> Result<(PathBuf, ingest::Report)> {
     eprintln!("Building the demo release from {} ...", source.display());
     let (index, report, diags) = onrecord::demo::prepare(source, workdir, progress)?;
-    for d in diags.iter().filter(|d| d.severity != Severity::Note) {
+    // A newcomer without the PDF and OCR tools gets one plain note, not a
+    // line per scanned record.
+    let no_ocr = |d: &&ingest::Diagnostic| d.message.contains("tesseract is not installed");
+    for d in diags
+        .iter()
+        .filter(|d| d.severity != Severity::Note && !no_ocr(d))
+    {
         eprintln!("{d}");
+    }
+    const TOOLS: &str =
+        "apt-get install poppler-utils tesseract-ocr tesseract-ocr-eng tesseract-ocr-fra";
+    if !onrecord::demo::can_scan() {
+        eprintln!(
+            "Note: pdftoppm (poppler-utils) is not installed, so the demo's scanned records were built with a text layer.\n\
+             The answers are the same; reading damaged scans by OCR is not shown. To see it: {TOOLS}"
+        );
+    } else if diags.iter().any(|d| no_ocr(&d)) {
+        eprintln!(
+            "Note: tesseract is not installed, so the demo's scanned pages were not read and their answers are missing.\n\
+             To read them: {TOOLS}"
+        );
     }
     Ok((index, report))
 }
@@ -2831,7 +2859,7 @@ fn cmd_demo(
         writeln!(out, "{}", answer::wrap(&format!("Caution: {CAUTION}"), 78))?;
         writeln!(
             out,
-            "\nThe demo records are invented (the Province of Kestrava does not exist).\nTry: onrecord ask \"...\" --index {0}\nCheck the answers above again later: onrecord history --index {0}, then onrecord replay --id N --index {0}",
+            "\nThe demo records are invented (the Province of Kestrava does not exist).\nTry: onrecord answer \"...\" --index {0}\nCheck the answers above again later: onrecord history --index {0}, then onrecord replay --id N --index {0}",
             index.display()
         )?;
     }

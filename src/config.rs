@@ -26,7 +26,7 @@ use std::path::{Path, PathBuf};
 pub struct Config {
     /// extractive, local or remote.
     pub drafter: Option<String>,
-    /// auto, a GGUF file, a folder or a pulled repository id.
+    /// auto, a GGUF file, a folder or a fetched repository id.
     pub llm: Option<String>,
     #[serde(default)]
     pub remote: RemoteSettings,

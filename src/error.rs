@@ -25,7 +25,7 @@ pub enum Error {
 
     #[error(
         "index at {path} was written by store format {found}, but this onrecord reads format {expected}; \
-         re-ingest your documents into a new index (or use the onrecord version that wrote it)"
+         add your documents to a new index (or use the onrecord version that wrote it)"
     )]
     FormatMismatch {
         path: PathBuf,
@@ -33,7 +33,7 @@ pub enum Error {
         expected: u32,
     },
 
-    #[error("no index at {path}; run `onrecord ingest <PATH>` first (or pass --index)")]
+    #[error("no index at {path}; run `onrecord add <PATH>` first (or pass --index)")]
     NoIndex { path: PathBuf },
 
     #[error("search index {path}: {message}")]

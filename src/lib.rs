@@ -3,7 +3,7 @@
 //!
 //! Data flow: `ingest` (extract → chunk → store + BM25 → embed + vectors) →
 //! `retrieve` (BM25, dense, fused) →
-//! `draft` (extractive, or a language model in `llm` prompted from `prompt`) → `verify` → `answer` (emit). See DEVELOPERS.md for the code map
+//! `draft` (extractive, or a language model in `llm` prompted from `prompt`) → `verify` → `answer` (emit). See DEVELOPERS.md for where each part lives
 //! and the invariants each module keeps.
 
 pub mod answer;

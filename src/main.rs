@@ -15,7 +15,7 @@ fn main() -> ExitCode {
     match cli::run() {
         Ok(code) => code,
         Err(e) => {
-            // A closed pipe (`onrecord search ... | head`) is not a failure.
+            // A closed pipe (`onrecord find ... | head`) is not a failure.
             if e.chain().any(|c| {
                 c.downcast_ref::<std::io::Error>()
                     .is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe)

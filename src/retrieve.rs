@@ -108,7 +108,7 @@ pub struct Index {
     pub vectors: Option<VectorIndex>,
     /// One-line notes for the user (a fallback to BM25, chunks not yet embedded).
     pub notes: Vec<String>,
-    /// What `search` uses.
+    /// What `find` uses.
     pub options: SearchOptions,
     /// The sentence vector graph, built on first use.
     units: std::sync::OnceLock<crate::units::UnitIndex>,
@@ -177,7 +177,7 @@ impl Index {
         self.search_with(query, filters, k, &self.options)
     }
 
-    /// The retriever `search` uses.
+    /// The retriever `find` uses.
     pub fn retriever(&self) -> RetrieverKind {
         self.effective(&self.options)
     }
@@ -402,7 +402,7 @@ impl Index {
 }
 
 /// A window of about `width` characters of `text` around the densest run of
-/// The search record `search --json` prints and `/api/search` returns:
+/// The search record `find --json` prints and `/api/find` returns:
 /// the query, filters and retriever, and each result with its page span,
 /// highlighted snippet and each retriever's rank and score.
 pub fn search_record(

@@ -105,7 +105,9 @@ pub fn build(source: &Path, out: &Path) -> Result<PathBuf> {
                     }
                     _ => {
                         if e.scan.is_some() {
-                            tracing::warn!(
+                            // The command line says this once for the
+                            // whole release; the detail is for RUST_LOG.
+                            tracing::debug!(
                                 "{}: pdftoppm (poppler-utils) is not installed, so this page set is written with a text layer instead of as a scan",
                                 src.display()
                             );

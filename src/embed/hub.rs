@@ -1,4 +1,4 @@
-//! Models from the model hub: `onrecord models pull <repo-id>` downloads a
+//! Models from the model hub: `onrecord models fetch <repo-id>` downloads a
 //! model's files into the hub's standard cache (`HF_HOME`, else
 //! `~/.cache/huggingface`), and offline lookups find a model already there.
 //! The folder that results is loaded like any local model folder.
@@ -48,7 +48,7 @@ pub fn cached_gguf(repo_id: &str) -> Option<PathBuf> {
 /// `config.json`, `tokenizer.json` and `model.safetensors` is an embedding
 /// model and its folder is returned; otherwise one GGUF file is fetched
 /// (`file`, else the 8-bit one, else the first) and its path returned.
-pub fn pull(repo_id: &str, file: Option<&str>, progress: bool) -> Result<PathBuf> {
+pub fn fetch(repo_id: &str, file: Option<&str>, progress: bool) -> Result<PathBuf> {
     let api = hf_hub::api::sync::ApiBuilder::from_env()
         .with_progress(progress)
         .build()
@@ -131,7 +131,7 @@ pub fn resolve_repo_or_dir(given: &Path) -> Result<PathBuf> {
         given,
         "no model folder here (and no such repository in the hub cache); \
          pass a folder holding config.json, tokenizer.json and model.safetensors, \
-         or run `onrecord models pull <repo-id>` first",
+         or run `onrecord models fetch <repo-id>` first",
     ))
 }
 

@@ -5,8 +5,8 @@
 //! `tokenizer.json` and `model.safetensors` (plus the optional
 //! sentence-transformers files `sentence_bert_config.json` and
 //! `1_Pooling/config.json`). That folder may have been named by the user,
-//! placed by `eval/models/fetch`, or pulled into the hub cache by
-//! `onrecord models pull`.
+//! placed by `eval/models/fetch`, or fetched into the hub cache by
+//! `onrecord models fetch`.
 //!
 //! invariant: every vector an embedder returns has length `dim()` and unit
 //! L2 norm (or is all zeros for a degenerate input).
@@ -23,7 +23,7 @@ use std::sync::Arc;
 
 /// The default small embedding model.
 pub const DEFAULT_MODEL: &str = "all-MiniLM-L6-v2";
-/// Its repository id on the model hub, for `models pull` and cache lookups.
+/// Its repository id on the model hub, for `models fetch` and cache lookups.
 pub const DEFAULT_REPO: &str = "sentence-transformers/all-MiniLM-L6-v2";
 
 /// Turns texts into unit vectors.
@@ -134,7 +134,7 @@ pub fn resolve(choice: &EmbedderChoice) -> Result<Resolved> {
                 embedder: None,
                 note: Some(format!(
                     "note: no embedding model in {}; using BM25 only (run eval/models/fetch, \
-                     `onrecord models pull {DEFAULT_REPO}`, or pass --embedder DIR)",
+                     `onrecord models fetch {DEFAULT_REPO}`, or pass --embedder DIR)",
                     candidates[0].display()
                 )),
             })

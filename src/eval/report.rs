@@ -26,7 +26,7 @@ pub fn esc(s: &str) -> String {
 
 /// Colours for configurations: dark enough for text on white (WCAG AA).
 const PALETTE: [&str; 6] = [
-    "#1f5fa8", "#b04a00", "#2e7d32", "#7b3fa0", "#8a6d00", "#00707a",
+    "#0f4c47", "#8c2f1c", "#6a3d9a", "#5b5300", "#1d4f7a", "#7a3556",
 ];
 
 fn colour(i: usize) -> &'static str {
@@ -178,13 +178,15 @@ fn latency_chart(r: &EvalReport) -> String {
     s
 }
 
-const STYLE: &str = "body{font-family:system-ui,-apple-system,'Segoe UI',sans-serif;color:#1a1a1a;background:#fff;max-width:60rem;margin:1.5rem auto;padding:0 1rem;line-height:1.5}
-h1{font-size:1.6rem}h2{font-size:1.25rem;margin-top:2rem;border-bottom:1px solid #ccc}
-table{border-collapse:collapse;margin:0.5rem 0;font-size:0.95rem}th,td{border:1px solid #bbb;padding:0.25rem 0.5rem;text-align:left;vertical-align:top}
-th{background:#eef1f5}td.num{text-align:right;font-variant-numeric:tabular-nums}
-.caution{border-left:4px solid #8a4b00;background:#fff6ea;padding:0.5rem 1rem}
-.warn{color:#7a3e00}.gold{color:#1b5e20;font-weight:600}.struck{color:#5a5a5a}
-details{border:1px solid #ccc;margin:0.4rem 0;padding:0.3rem 0.6rem}summary{cursor:pointer}
+/// The page's look: the same ink-on-paper palette, serif text and seal
+/// caution as onrecord's web page.
+const STYLE: &str = "body{font-family:Charter,'Bitstream Charter','Sitka Text',Cambria,'DejaVu Serif',serif;color:#1f1d1a;background:#fbf8f1;max-width:60rem;margin:1.5rem auto;padding:0 1rem;line-height:1.55}
+h1{font-size:1.7rem;font-variant:small-caps;letter-spacing:0.05em;border-bottom:3px double #857b68}h2{font-size:1.25rem;margin-top:2rem;font-variant:small-caps;letter-spacing:0.03em;border-top:4px solid #1f1d1a;padding-top:0.3rem}
+table{border-collapse:collapse;margin:0.5rem 0;font-size:0.95rem;background:#fbf8f1}th,td{border:1px solid #857b68;padding:0.25rem 0.5rem;text-align:left;vertical-align:top}
+th{background:#f3eee2}td.num{text-align:right;font-variant-numeric:tabular-nums;font-family:'DejaVu Sans Mono','Liberation Mono',monospace;font-size:0.9em}
+.caution{border:3px double #8c2f1c;color:#8c2f1c;padding:0.5rem 1rem}
+.warn{color:#8c2f1c}.gold{color:#0f4c47;font-weight:700}.struck{color:#4f4a41}
+details{border:1px dashed #857b68;margin:0.4rem 0;padding:0.3rem 0.6rem}summary{cursor:pointer}
 svg{max-width:100%;height:auto}";
 
 /// The report as one self-contained HTML page.

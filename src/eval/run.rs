@@ -8,7 +8,7 @@
 //! corpus share one index.
 //!
 //! invariant: each question's figures come from the same answer record
-//! `ask` would print for it; nothing is scored that a reader would not see.
+//! `answer` would print for it; nothing is scored that a reader would not see.
 //! invariant: citation support is judged by a different judge from the one
 //! that filtered the answer, or the report carries a warning.
 
@@ -54,7 +54,8 @@ pub struct RetrievalSection {
     /// bm25, dense or hybrid.
     #[serde(default = "bm25")]
     pub retriever: String,
-    #[serde(default = "ten")]
+    /// How many passages each answer reads.
+    #[serde(default = "ten", rename = "passages")]
     pub k: usize,
     /// Pseudo-relevance feedback (RM3) for the BM25 ranking.
     #[serde(default)]
@@ -89,7 +90,7 @@ pub struct DraftingSection {
     /// extractive (default), local or remote.
     #[serde(default)]
     pub drafter: Option<String>,
-    /// For local: a GGUF file, a folder or a pulled repository id (default:
+    /// For local: a GGUF file, a folder or a fetched repository id (default:
     /// the default model). For remote: the model name the endpoint knows.
     #[serde(default)]
     pub model: Option<String>,
@@ -143,7 +144,7 @@ impl EvalConfig {
         };
         c.retriever_kind().map_err(bad)?;
         if c.retrieval.k == 0 {
-            return Err(bad("retrieval.k must be at least 1".into()));
+            return Err(bad("retrieval.passages must be at least 1".into()));
         }
         match c.drafting.drafter.as_deref().unwrap_or("extractive") {
             "extractive" | "local" => {}

@@ -254,7 +254,7 @@ pub type Rows = (Vec<Vec<f32>>, Vec<bool>);
 /// SQuAD v1.1 in the setting answers are made in. Of `articles`, the odd
 /// ones are ingested (one record per paragraph, titled with its article)
 /// and the even ones left out; each question (at most `cap` per kind) is
-/// retrieved for as `ask` retrieves (hybrid with `embedder`, else BM25),
+/// retrieved for as `answer` retrieves (hybrid with `embedder`, else BM25),
 /// and every candidate sentence of the retrieved passages is a row,
 /// featurised as answering featurises it. A candidate answers when it lies
 /// in the question's own paragraph and holds a gold answer; on a left-out

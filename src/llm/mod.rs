@@ -4,8 +4,8 @@
 //! prompts them and parses their output lives in `draft`.
 //!
 //! Where a local model comes from is decided here, as for embedders: a GGUF
-//! file or a folder holding one, a repository already pulled into the hub
-//! cache with `onrecord models pull`, or the default model placed by
+//! file or a folder holding one, a repository already fetched into the hub
+//! cache with `onrecord models fetch`, or the default model placed by
 //! `eval/models/fetch` in the models folder.
 //!
 //! invariant: a generator sees only the messages it is given; it never reads
@@ -23,7 +23,7 @@ use std::path::{Path, PathBuf};
 
 /// The default local drafting model.
 pub const DEFAULT_LLM: &str = "SmolLM2-135M-Instruct";
-/// Its GGUF repository on the model hub, for `models pull`.
+/// Its GGUF repository on the model hub, for `models fetch`.
 pub const DEFAULT_LLM_REPO: &str = "HuggingFaceTB/SmolLM2-135M-Instruct-GGUF";
 
 /// One chat turn.
@@ -192,7 +192,7 @@ pub fn resolve(choice: &LlmChoice) -> Result<PathBuf> {
                 path: crate::embed::models_dir().join(DEFAULT_LLM),
                 message: format!(
                     "the default drafting model {DEFAULT_LLM} is not here; place it with \
-                     `eval/models/fetch`, run `onrecord models pull {DEFAULT_LLM_REPO}`, \
+                     `eval/models/fetch`, run `onrecord models fetch {DEFAULT_LLM_REPO}`, \
                      or pass --llm <FILE.gguf>"
                 ),
             }),
@@ -218,7 +218,7 @@ pub fn resolve(choice: &LlmChoice) -> Result<PathBuf> {
                 path: p.clone(),
                 message: "no GGUF file here (and no such repository in the hub cache); \
                           pass a .gguf file or a folder holding one, or run \
-                          `onrecord models pull <repo-id> --file <NAME.gguf>` first"
+                          `onrecord models fetch <repo-id> --file <NAME.gguf>` first"
                     .into(),
             })
         }

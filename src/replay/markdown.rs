@@ -1,4 +1,4 @@
-//! Markdown answers with footnotes: written by `ask --markdown` and read
+//! Markdown answers with footnotes: written by `answer --markdown` and read
 //! back by `replay`, so that a reporter's own draft written the same way
 //! can be checked with one command.
 //!

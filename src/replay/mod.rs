@@ -125,8 +125,8 @@ impl Claims {
 
 /// The supported sentences of an answer record, as claims to replay.
 /// Struck sentences were never part of the answer and are not replayed.
-/// Reads an answer given as text: an answer record from `ask --json`
-/// (JSON) or a Markdown answer from `ask --markdown`. Returns the claims and
+/// Reads an answer given as text: an answer record from `answer --json`
+/// (JSON) or a Markdown answer from `answer --markdown`. Returns the claims and
 /// the format's name; the error says what the text is not.
 pub fn read_answer(text: &str) -> Result<(Claims, &'static str), String> {
     if !text.trim_start().starts_with('{') {
@@ -144,13 +144,13 @@ pub fn read_answer(text: &str) -> Result<(Claims, &'static str), String> {
         }
         None => {
             return Err(
-                "not an answer record (no schema_version); give JSON from `ask --json` or a Markdown answer"
+                "not an answer record (no schema_version); give JSON from `answer --json` or a Markdown answer"
                     .into(),
             );
         }
     }
     let a: AnswerRecord = serde_json::from_value(v)
-        .map_err(|e| format!("not an answer record from `ask --json`: {e}"))?;
+        .map_err(|e| format!("not an answer record from `answer --json`: {e}"))?;
     Ok((claims_from_record(&a), "json"))
 }
 

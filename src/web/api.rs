@@ -303,7 +303,9 @@ fn check_text(what: &str, s: &str, max: usize) -> Result<String, ApiError> {
 fn check_k(k: Option<usize>, max: usize) -> Result<usize, ApiError> {
     match k.unwrap_or(10) {
         k @ 1.. if k <= max => Ok(k),
-        k => Err(ApiError::bad(format!("k must be 1 to {max} (got {k})"))),
+        k => Err(ApiError::bad(format!(
+            "passages must be 1 to {max} (got {k})"
+        ))),
     }
 }
 
@@ -335,7 +337,8 @@ fn choose_retriever(idx: &mut Index, name: Option<&str>) -> Result<(), ApiError>
 #[serde(deny_unknown_fields)]
 pub struct SearchBody {
     query: String,
-    #[serde(default)]
+    /// How many passages to list or read.
+    #[serde(default, rename = "passages")]
     k: Option<usize>,
     #[serde(default)]
     retriever: Option<String>,
@@ -343,7 +346,7 @@ pub struct SearchBody {
     filters: FilterBody,
 }
 
-/// `POST /api/search`: the record `search --json` prints.
+/// `POST /api/find`: the record `find --json` prints.
 pub async fn search(
     State(st): State<AppState>,
     body: Body<SearchBody>,
@@ -351,7 +354,7 @@ pub async fn search(
     let Json(b) = body?;
     let limits = st.inner.limits;
     let query = check_text("query", &b.query, limits.max_question_chars)?;
-    let k = check_k(b.k, limits.max_k)?;
+    let k = check_k(b.k, limits.max_passages)?;
     let filters = b.filters.resolve()?;
     st.with_index(move |idx| {
         choose_retriever(idx, b.retriever.as_deref())?;
@@ -370,7 +373,8 @@ pub async fn search(
 #[serde(deny_unknown_fields)]
 pub struct AskBody {
     question: String,
-    #[serde(default)]
+    /// How many passages to list or read.
+    #[serde(default, rename = "passages")]
     k: Option<usize>,
     #[serde(default)]
     retriever: Option<String>,
@@ -398,7 +402,7 @@ struct AskJob {
 fn check_ask(st: &AppState, b: AskBody) -> Result<AskJob, ApiError> {
     let limits = st.inner.limits;
     let question = check_text("question", &b.question, limits.max_question_chars)?;
-    let k = check_k(b.k, limits.max_k)?;
+    let k = check_k(b.k, limits.max_passages)?;
     let drafters = st.inner.models.drafters();
     let drafter = b.drafter.unwrap_or_else(|| "extractive".into());
     if !drafters.contains(&drafter.as_str()) {
@@ -559,7 +563,7 @@ fn with_answer_id(mut resp: Response, id: Option<u64>) -> Response {
     resp
 }
 
-/// `POST /api/ask`: the answer record `ask --json` prints; the answer's
+/// `POST /api/question`: the answer record `answer --json` prints; the answer's
 /// number in the log is in the `X-Onrecord-Answer-Id` header.
 pub async fn ask(State(st): State<AppState>, body: Body<AskBody>) -> Result<Response, ApiError> {
     let Json(b) = body?;
@@ -571,7 +575,7 @@ pub async fn ask(State(st): State<AppState>, body: Body<AskBody>) -> Result<Resp
     Ok(with_answer_id(Json(a).into_response(), id))
 }
 
-/// `POST /api/ask/stream`: server-sent events while the answer is made:
+/// `POST /api/question/stream`: server-sent events while the answer is made:
 /// `stage` (`{"stage", "message"}`), `draft` (a model's text as it is
 /// written, not yet verified), then `answer` (the answer record; the event
 /// id is its number in the log) or `error` (`{"error": {...}}`).
@@ -776,7 +780,7 @@ fn stem(kind: &str, stamp: &str) -> String {
 }
 
 /// `POST /api/export?format=markdown|csv|json` with an answer record:
-/// the same file `ask --markdown`, `--csv` or `--json` writes, as a download.
+/// the same file `answer --markdown`, `--csv` or `--json` writes, as a download.
 pub async fn export(
     q: Params<FormatQuery>,
     body: Body<AnswerRecord>,
@@ -882,7 +886,7 @@ pub async fn replay(
     Ok(format.file(&stem("replay", &report.replayed_at), body))
 }
 
-/// `GET /api/docs[?from&to&org]`: the list `docs --json` prints.
+/// `GET /api/records[?from&to&org]`: the list `records --json` prints.
 pub async fn docs(
     State(st): State<AppState>,
     q: Params<FilterBody>,

@@ -1,4 +1,4 @@
-//! `onrecord serve`: the reporter's page and the HTTP JSON API behind it.
+//! `onrecord web`: the reporter's page and the HTTP JSON API behind it.
 //!
 //! One axum router serves the page (HTML, CSS and script compiled into the
 //! binary) and `/api/*`, which returns the same versioned records as the
@@ -56,7 +56,7 @@ pub struct Limits {
     /// Longest question or search query (characters).
     pub max_question_chars: usize,
     /// Most passages a request may retrieve.
-    pub max_k: usize,
+    pub max_passages: usize,
     /// Requests doing work at once.
     pub workers: usize,
     /// Requests that may wait for a worker; more are refused with 429.
@@ -69,14 +69,14 @@ impl Default for Limits {
             max_body_bytes: 64 * 1024,
             max_replay_bytes: 2 * 1024 * 1024,
             max_question_chars: 1000,
-            max_k: 50,
+            max_passages: 50,
             workers: std::thread::available_parallelism().map_or(2, |n| n.get()),
             max_waiting: 256,
         }
     }
 }
 
-/// Everything `serve` needs.
+/// Everything `web` needs.
 pub struct ServeOptions {
     pub index: PathBuf,
     pub bind: SocketAddr,
@@ -243,10 +243,10 @@ pub fn app(state: AppState) -> Router {
     let limits = state.inner.limits;
     let api = Router::new()
         .route("/api/info", get(api::info))
-        .route("/api/docs", get(api::docs))
-        .route("/api/search", post(api::search))
-        .route("/api/ask", post(api::ask))
-        .route("/api/ask/stream", post(api::ask_stream))
+        .route("/api/records", get(api::docs))
+        .route("/api/find", post(api::search))
+        .route("/api/question", post(api::ask))
+        .route("/api/question/stream", post(api::ask_stream))
         .route("/api/page", get(api::page))
         .route("/api/export", post(api::export))
         .route("/api/answers", get(api::answers))
@@ -337,7 +337,7 @@ fn admit(state: &AppState, req: &Request) -> Admit {
     }
     Admit::No(ApiError::new(
         StatusCode::UNAUTHORIZED,
-        "this server needs its token: open the address printed by `onrecord serve` (it ends in ?token=...), \
+        "this server needs its token: open the address printed by `onrecord web` (it ends in ?token=...), \
          or send the header Authorization: Bearer TOKEN",
     ))
 }

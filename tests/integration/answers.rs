@@ -67,7 +67,7 @@ fn questions_the_records_do_not_answer_abstain() {
     }
 }
 
-/// A drafter that writes fixed sentences, to drive the verifier through `ask`.
+/// A drafter that writes fixed sentences, to drive the verifier through `answer`.
 struct Fixed(Vec<(String, String)>);
 
 impl Drafter for Fixed {
@@ -143,6 +143,6 @@ fn unsupported_drafted_sentences_are_struck_with_reasons() {
             .starts_with("quote not found on p. 1 of")
     );
     let text = onrecord::answer::render_text(&a);
-    assert!(text.contains("Struck by the verifier (2)"), "{text}");
+    assert!(text.contains("STRUCK BY THE VERIFIER (2)"), "{text}");
     assert!(text.contains("does not establish that the documents are accurate"));
 }

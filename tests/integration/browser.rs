@@ -1,6 +1,6 @@
 //! The page in a real browser: headless Chromium (Debian's package) driven
 //! through the WebDriver protocol (W3C WebDriver, chromedriver), against
-//! `onrecord serve` on a loopback port. Slow: runs with ONRECORD_SLOW=1;
+//! `onrecord web` on a loopback port. Slow: runs with ONRECORD_SLOW=1;
 //! under CI=true a missing Chromium or chromedriver is a failure.
 
 use crate::support::{TestServer, slow_enabled, web_index};
@@ -313,28 +313,41 @@ fn browser_asks_reads_the_page_toggles_struck_downloads_and_stays_inert() {
     let question =
         "On what date did the rebuilt Aubrel Bay Ferry Terminal reopen to ferry traffic?";
     b.ask(question);
-    // The verified sentence that gives the reopening date (the answer may
-    // open with another dated sentence), and its footnote.
+    // The verified claim that gives the reopening date (the answer may
+    // open with another dated sentence), with its evidence beneath it.
     let at = b.js(
-        "const li = [...document.querySelectorAll('#answer li.verified')];
-         const i = li.findIndex((e) => e.textContent.includes('22 April 2024'));
-         return i < 0 ? null : [i + 1, Number(li[i].querySelector('button.fn').dataset.note)]",
+        "const li = [...document.querySelectorAll('#answer > li.claim')];
+         const i = li.findIndex((e) => e.querySelector('.sentence').textContent.includes('22 April 2024'));
+         return i < 0 ? null : i + 1",
         json!([]),
     );
-    let (nth, note) = (at[0].as_u64().unwrap(), at[1].as_u64().unwrap());
-    let sentence = format!("#answer li.verified:nth-of-type({nth})");
-    let dated = b.text(&sentence);
+    let nth = at.as_u64().expect("a claim with the reopening date");
+    let claim = format!("#answer > li.claim:nth-of-type({nth})");
+    let dated = b.text(&format!("{claim} .sentence"));
     assert!(dated.contains("22 April 2024"), "{dated}");
-    assert!(
-        dated.contains(&format!("[{note}]")),
-        "footnote marker: {dated}"
+    // The evidence sits under the sentence it proves: the quote, then
+    // `doc-id · p. N`, inside the same list item and after the sentence.
+    let order = b.js(
+        "const li = document.querySelector(arguments[0]);
+         const s = li.querySelector('.sentence'), q = li.querySelector('.evidence .quote');
+         return [!!q, !!(s.compareDocumentPosition(q) & Node.DOCUMENT_POSITION_FOLLOWING)]",
+        json!([claim]),
     );
-    let source = b.text(&format!("#source-{note}"));
-    assert!(source.contains("p. 1"), "page reference: {source}");
-    let quote = b.text(&format!("#source-{note} blockquote"));
+    assert_eq!(order, json!([true, true]), "evidence under the claim");
+    let reference = b.text(&format!("{claim} .evidence .ref"));
+    assert!(reference.contains(" · p. 1"), "page reference: {reference}");
+    let quote = b.text(&format!("{claim} .evidence .quote"));
+    // No footnote numbers and no separate sources list.
+    assert_eq!(
+        b.js(
+            "return document.querySelectorAll('button.fn, #sources').length",
+            json!([])
+        ),
+        json!(0)
+    );
 
-    // The page view, opened from the footnote with the Enter key.
-    b.keys(&format!("{sentence} button.fn"), ENTER);
+    // The page opens inside the claim, from the keyboard, quote marked.
+    b.keys(&format!("{claim} .evidence button.open-page"), ENTER);
     let marked = b.wait(
         "the page view",
         "const m = document.querySelector('#page-text mark');
@@ -343,13 +356,36 @@ fn browser_asks_reads_the_page_toggles_struck_downloads_and_stays_inert() {
     );
     assert_eq!(fold(marked.as_str().unwrap()), fold(&quote));
     assert!(b.text("#page-heading").contains("page 1 of"));
+    assert_eq!(
+        b.js(
+            "const p = document.getElementById('page-panel');
+             return [p.closest('li.claim') === document.querySelector(arguments[0]),
+                     document.querySelector(arguments[0] + ' button.open-page').getAttribute('aria-expanded')]",
+            json!([claim]),
+        ),
+        json!([true, "true"]),
+        "the page opens under the sentence it proves"
+    );
+    // The quoted words are marked by the page's own style: bold with a
+    // double rule beneath, on the page's paper, not a highlighter fill.
+    let style = b.js(
+        "const cs = getComputedStyle(document.querySelector('#page-text mark'));
+         return [cs.textDecorationStyle, cs.backgroundColor, cs.fontWeight]",
+        json!([]),
+    );
+    assert_eq!(style[0], json!("double"), "{style}");
+    assert_eq!(style[1], json!("rgba(0, 0, 0, 0)"), "{style}");
+    assert!(
+        style[2].as_str().unwrap().parse::<u32>().unwrap() >= 700,
+        "{style}"
+    );
 
-    // Contrast of everything now on screen (answer, sources, page view).
+    // Contrast of everything now on screen (the ledger and the open page).
     let report = b.js(CONTRAST, json!([]));
     assert!(report["checked"].as_u64().unwrap() > 30, "{report}");
     assert_eq!(report["bad"], json!([]), "text under 4.5:1");
 
-    // The CSV download: the columns `ask --csv` writes, and the quote.
+    // The CSV download: the columns `answer --csv` writes, and the quote.
     b.click("#download-csv");
     let csv_path = wait_for_download(b.downloads.path(), "csv");
     let mut rows = csv::Reader::from_path(&csv_path).unwrap();
@@ -391,25 +427,25 @@ fn browser_asks_reads_the_page_toggles_struck_downloads_and_stays_inert() {
         json!(true)
     );
 
-    // A quote from a scanned page says so in the sources panel (demo
+    // A quote from a scanned page says so in its evidence (demo
     // question c02; the scans are read when tesseract and pdftoppm exist).
     if find_program(&["tesseract"]).is_some() && find_program(&["pdftoppm"]).is_some() {
         b.ask("Which non-conformance report did Corvane issue to Brindlemoor over the pile splice welds?");
-        let sources = b.text("#sources");
+        let ledger = b.text("#answer");
         assert!(
-            sources.contains("This page was read by OCR") || sources.contains("Low OCR confidence"),
-            "{sources}"
+            ledger.contains("This page was read by OCR") || ledger.contains("Low OCR confidence"),
+            "{ledger}"
         );
     }
 
     // Hostile markup in a record (demo question x01) stays text.
     b.ask("How late did the 06:40 Route 90X shuttle from Quay Street leave in the first week of June 2022?");
-    let sentence = b.text("#answer li.verified");
+    let sentence = b.text("#answer li.claim .sentence");
     assert!(
         sentence.contains("<script>window.__onrecordXss"),
         "{sentence}"
     );
-    b.click("#answer li.verified button.fn");
+    b.click("#answer li.claim button.open-page");
     b.wait(
         "the hostile page",
         "const m = document.querySelector('#page-text mark'); return m && m.textContent.includes('<script>')",
@@ -419,12 +455,12 @@ fn browser_asks_reads_the_page_toggles_struck_downloads_and_stays_inert() {
     for m in ["<img src=x onerror=", "](javascript:", "onclick="] {
         assert!(page.contains(m), "{m} shown as text");
     }
-    let title = b.text("#sources li .title");
+    let title = b.text("#answer li.claim .evidence .what");
     assert!(title.contains("<b>raw</b>"), "{title}");
     let inert = b.js(
         "return {xss: typeof window.__onrecordXss, scripts: document.scripts.length,
                  imgs: document.querySelectorAll('main img').length,
-                 bold: document.querySelectorAll('#sources b').length,
+                 bold: document.querySelectorAll('#answer b').length,
                  links: document.querySelectorAll('main a[href]').length}",
         json!([]),
     );
@@ -436,7 +472,7 @@ fn browser_asks_reads_the_page_toggles_struck_downloads_and_stays_inert() {
     // Replay in the page: a quote changed after the fact fails.
     let a: Value = b
         .http
-        .post(format!("{home}api/ask"))
+        .post(format!("{home}api/question"))
         .json(&json!({"question": question}))
         .send()
         .unwrap()

@@ -13,7 +13,7 @@ fn onrecord(args: &[&str], index: &std::path::Path) -> std::process::Output {
 }
 
 #[test]
-fn ingest_search_and_ask_from_the_command_line() {
+fn add_find_and_answer_from_the_command_line() {
     let src = tempfile::tempdir().unwrap();
     let idx = tempfile::tempdir().unwrap();
     write(
@@ -24,11 +24,11 @@ fn ingest_search_and_ask_from_the_command_line() {
     write(src.path(), "broken.pdf", b"%PDF-1.7 garbage");
     let src_arg = src.path().to_str().unwrap();
 
-    let out = onrecord(&["ingest", src_arg, "--json"], idx.path());
+    let out = onrecord(&["add", src_arg, "--json"], idx.path());
     assert_eq!(
         out.status.code(),
         Some(1),
-        "a failed file makes ingest exit 1"
+        "a failed file makes `add` exit 1"
     );
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     assert_eq!(v["report"]["ingested"], 1);
@@ -40,19 +40,19 @@ fn ingest_search_and_ask_from_the_command_line() {
             .ends_with("broken.pdf")
     );
 
-    let out = onrecord(&["search", "dredging amendment", "--json"], idx.path());
+    let out = onrecord(&["find", "dredging amendment", "--json"], idx.path());
     assert!(out.status.success());
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     assert_eq!(v["results"][0]["doc_id"], "minutes");
     assert_eq!(v["results"][0]["page"], 1);
 
-    let out = onrecord(&["search", "dredging amendment"], idx.path());
+    let out = onrecord(&["find", "dredging amendment"], idx.path());
     let text = String::from_utf8(out.stdout).unwrap();
     assert!(text.contains("«dredging» «amendment»"), "{text}");
 
     let out = onrecord(
         &[
-            "ask",
+            "answer",
             "How much was the dredging amendment the board approved?",
             "--json",
         ],
@@ -102,10 +102,26 @@ fn ingest_search_and_ask_from_the_command_line() {
         2
     );
 
-    let out = onrecord(&["ask", "How much was the dredging amendment?"], idx.path());
+    let out = onrecord(
+        &["answer", "How much was the dredging amendment?"],
+        idx.path(),
+    );
     let text = String::from_utf8(out.stdout).unwrap();
+    assert!(text.contains("Caution:"), "{text}");
+    // The ledger: each numbered claim is followed at once by its proof and
+    // then by where it is, `doc-id · p. N`.
+    let lines: Vec<&str> = text.lines().collect();
+    let claims: Vec<usize> = (0..lines.len())
+        .filter(|&i| lines[i].trim_start().starts_with("1  "))
+        .collect();
+    assert_eq!(claims.len(), 1, "{text}");
+    let i = claims[0];
+    assert!(lines[i].contains("$1.4 million"), "{text}");
+    assert!(lines[i + 1].trim_start().starts_with("proof"), "{text}");
+    assert!(lines[i + 1].contains("$1.4 million"), "{text}");
     assert!(
-        text.contains("Sources") && text.contains("Caution:"),
+        lines[i + 2].trim_start().starts_with("from")
+            && lines[i + 2].contains("minutes \u{b7} p. 1"),
         "{text}"
     );
 }
@@ -113,15 +129,15 @@ fn ingest_search_and_ask_from_the_command_line() {
 #[test]
 fn clear_errors_for_a_missing_index_and_bad_arguments() {
     let idx = tempfile::tempdir().unwrap();
-    let out = onrecord(&["search", "anything"], &idx.path().join("nothing-here"));
+    let out = onrecord(&["find", "anything"], &idx.path().join("nothing-here"));
     assert_eq!(out.status.code(), Some(1));
     let err = String::from_utf8(out.stderr).unwrap();
     assert!(
-        err.contains("no index at") && err.contains("onrecord ingest"),
+        err.contains("no index at") && err.contains("onrecord add"),
         "{err}"
     );
 
-    let out = onrecord(&["search", "x", "--from", "March 2020"], idx.path());
+    let out = onrecord(&["find", "x", "--from", "March 2020"], idx.path());
     assert_eq!(out.status.code(), Some(2));
     assert!(
         String::from_utf8(out.stderr)
@@ -131,9 +147,29 @@ fn clear_errors_for_a_missing_index_and_bad_arguments() {
 
     let out = onrecord(&["--help"], idx.path());
     let help = String::from_utf8(out.stdout).unwrap();
-    for cmd in ["ingest", "search", "ask", "demo", "eval"] {
-        assert!(help.contains(cmd), "help lacks {cmd}");
+    // The command list is the project's own vocabulary: each command is
+    // listed, and the generic verbs it replaced are not commands.
+    let listed: Vec<&str> = help
+        .lines()
+        .skip_while(|l| !l.starts_with("Commands:"))
+        .skip(1)
+        .take_while(|l| l.starts_with("  "))
+        .filter_map(|l| l.split_whitespace().next())
+        .collect();
+    for cmd in [
+        "add", "find", "answer", "replay", "records", "web", "models", "demo", "eval",
+    ] {
+        assert!(listed.contains(&cmd), "help lacks {cmd}: {listed:?}");
     }
+    for old in ["ingest", "search", "ask", "docs", "serve"] {
+        assert!(!listed.contains(&old), "{old} is still a command");
+        let out = onrecord(&[old, "x"], idx.path());
+        assert_eq!(out.status.code(), Some(2), "{old} was accepted");
+    }
+    let out = onrecord(&["models", "--help"], idx.path());
+    let help = String::from_utf8(out.stdout).unwrap();
+    assert!(help.contains("fetch") && help.contains("where"), "{help}");
+    assert!(!help.contains("pull") && !help.contains("  list"), "{help}");
 }
 
 /// Without a model: one line says so, and search, ask and ingest carry on
@@ -164,7 +200,7 @@ fn retrievers_from_the_command_line_with_and_without_a_model() {
             .output()
             .expect("the binary runs")
     };
-    let out = run(&["ingest", src.path().to_str().unwrap()], empty.path());
+    let out = run(&["add", src.path().to_str().unwrap()], empty.path());
     assert!(out.status.success());
     let err = String::from_utf8_lossy(&out.stderr);
     assert_eq!(
@@ -174,14 +210,14 @@ fn retrievers_from_the_command_line_with_and_without_a_model() {
         1,
         "{err}"
     );
-    let out = run(&["search", "pier budget", "--json"], empty.path());
+    let out = run(&["find", "pier budget", "--json"], empty.path());
     assert!(out.status.success());
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     assert_eq!(v["retriever"], "bm25");
     assert_eq!(v["results"][0]["signals"][0]["retriever"], "bm25");
     // A model folder that is not there is an error that names it.
     let out = run(
-        &["search", "pier", "--embedder", "/no/such/model"],
+        &["find", "pier", "--embedder", "/no/such/model"],
         empty.path(),
     );
     assert_eq!(out.status.code(), Some(1));
@@ -192,7 +228,7 @@ fn retrievers_from_the_command_line_with_and_without_a_model() {
     };
     let models = onrecord::embed::models_dir();
     // The model is now found: re-running ingest embeds the stored chunks.
-    let out = run(&["ingest", src.path().to_str().unwrap(), "--json"], &models);
+    let out = run(&["add", src.path().to_str().unwrap(), "--json"], &models);
     assert!(
         out.status.success(),
         "{}",
@@ -201,7 +237,7 @@ fn retrievers_from_the_command_line_with_and_without_a_model() {
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     assert_eq!(v["embedding"]["report"]["embedded"], 2);
     let out = run(
-        &["search", "cost overruns on the ferry terminal", "--json"],
+        &["find", "cost overruns on the ferry terminal", "--json"],
         &models,
     );
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
@@ -211,7 +247,7 @@ fn retrievers_from_the_command_line_with_and_without_a_model() {
     assert_eq!(signals.len(), 2);
     assert_eq!(v["fusion"]["k"], 60.0);
     let out = run(
-        &["search", "cost overruns on the ferry terminal", "--explain"],
+        &["find", "cost overruns on the ferry terminal", "--why"],
         &models,
     );
     let text = String::from_utf8(out.stdout).unwrap();
@@ -220,7 +256,7 @@ fn retrievers_from_the_command_line_with_and_without_a_model() {
         "{text}"
     );
     let out = run(
-        &["search", "ferry", "--retriever", "dense", "--json"],
+        &["find", "ferry", "--retriever", "dense", "--json"],
         &models,
     );
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
@@ -282,7 +318,7 @@ fn the_demo_command_uses_hybrid_when_the_model_is_present() {
     }
 }
 
-/// `ask --drafter remote` end to end through the binary, against a loopback
+/// `answer --drafter remote` end to end through the binary, against a loopback
 /// OpenAI-compatible server: the draft streams to standard error, the
 /// verified answer goes to standard output, and `--json` carries both the
 /// raw draft and the verdicts.
@@ -296,17 +332,14 @@ fn ask_with_a_remote_drafter_streams_then_verifies() {
         "minutes.txt",
         "The board approved the dredging amendment of $1.4 million on 3 June 2020.",
     );
-    let out = onrecord(
-        &["ingest", src.path().to_str().unwrap(), "--json"],
-        idx.path(),
-    );
+    let out = onrecord(&["add", src.path().to_str().unwrap(), "--json"], idx.path());
     assert!(out.status.success());
     let draft = "The board approved $1.4 million for dredging. [1] \"The board approved the dredging amendment of $1.4 million\"\nThe board also bought a ferry.";
     let pieces: Vec<String> = draft.split_inclusive(' ').map(str::to_string).collect();
     let ep = serve(vec![Reply::Stream(pieces.clone()), Reply::Stream(pieces)]);
     let args = |json: bool| {
         let mut a = vec![
-            "ask",
+            "answer",
             "How much was the dredging amendment?",
             "--drafter",
             "remote",
@@ -333,11 +366,11 @@ fn ask_with_a_remote_drafter_streams_then_verifies() {
         "{err}"
     );
     assert!(
-        text.contains("The board approved $1.4 million for dredging. [1]"),
+        text.contains(" 1  The board approved $1.4 million for dredging.\n"),
         "{text}"
     );
     assert!(
-        text.contains("Struck by the verifier (1)") && text.contains("no citation"),
+        text.contains("STRUCK BY THE VERIFIER (1)") && text.contains("no citation"),
         "{text}"
     );
     assert!(text.contains("Caution:"), "{text}");
@@ -370,9 +403,9 @@ fn a_remote_drafter_without_a_url_says_what_is_missing() {
     let idx = tempfile::tempdir().unwrap();
     let src = tempfile::tempdir().unwrap();
     write(src.path(), "a.txt", "The board met on 3 June 2020.");
-    onrecord(&["ingest", src.path().to_str().unwrap()], idx.path());
+    onrecord(&["add", src.path().to_str().unwrap()], idx.path());
     let out = Command::new(env!("CARGO_BIN_EXE_onrecord"))
-        .args(["ask", "When did the board meet?", "--drafter", "remote"])
+        .args(["answer", "When did the board meet?", "--drafter", "remote"])
         .env("ONRECORD_INDEX", idx.path())
         .env_remove("ONRECORD_REMOTE_URL")
         .env_remove("ONRECORD_REMOTE_MODEL")
@@ -395,7 +428,7 @@ fn the_settings_file_sets_drafting_defaults_and_never_holds_a_key() {
         "minutes.txt",
         "The board approved the dredging amendment of $1.4 million on 3 June 2020.",
     );
-    onrecord(&["ingest", src.path().to_str().unwrap()], idx.path());
+    onrecord(&["add", src.path().to_str().unwrap()], idx.path());
     let ep = serve(vec![Reply::Stream(vec![
         "The amendment was $1.4 million. [1] \"the dredging amendment of $1.4 million\"".into(),
     ])]);
@@ -409,7 +442,7 @@ fn the_settings_file_sets_drafting_defaults_and_never_holds_a_key() {
         ),
     );
     let run = |config: &std::path::Path, extra: &[&str]| {
-        let mut args = vec!["ask", "How much was the dredging amendment?", "--json"];
+        let mut args = vec!["answer", "How much was the dredging amendment?", "--json"];
         args.extend_from_slice(extra);
         Command::new(env!("CARGO_BIN_EXE_onrecord"))
             .args(&args)

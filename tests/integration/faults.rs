@@ -50,7 +50,7 @@ struct Campaign {
 
 const GOOD_SENTENCES: [&str; 8] = [
     "The Vell Quay footbridge reopened to walkers on 3 May.",
-    "Tollan Marine was paid $412,000 for the pontoon repairs.",
+    "Sallowcrest Marine was paid $412,000 for the pontoon repairs.",
     "The harbour clerk signed the berth register on 9 June.",
     "Dredging of the inner basin finished two weeks late.",
     "The ferry timetable changes from the first Monday of October.",
@@ -451,7 +451,7 @@ fn ingest(index: &Path, dir: &Path, reader: &str) -> (serde_json::Value, f64, f6
     let start = Instant::now();
     let mut child = Command::new(env!("CARGO_BIN_EXE_onrecord"))
         .args([
-            "ingest",
+            "add",
             "--json",
             "--quiet",
             "--embedder",

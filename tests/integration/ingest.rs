@@ -285,7 +285,7 @@ fn a_store_in_another_format_is_refused_with_a_clear_message() {
     let err = Store::open(tempfile::tempdir().unwrap().path())
         .err()
         .unwrap();
-    assert!(err.to_string().contains("onrecord ingest"), "{err}");
+    assert!(err.to_string().contains("onrecord add"), "{err}");
 }
 
 #[test]

@@ -26,7 +26,7 @@ fn onrecord(args: &[&str], index: &Path) -> Output {
 
 fn ingest_args(dir: &Path) -> Vec<String> {
     vec![
-        "ingest".into(),
+        "add".into(),
         dir.to_string_lossy().into_owned(),
         "--json".into(),
         "--quiet".into(),
@@ -135,7 +135,7 @@ fn check(index: &Path, rev: usize, report: &serde_json::Value, history: usize) {
     }
     // Search finds the latest revision's words, without a reindex.
     for i in [0, FILES / 2, FILES - 1] {
-        let out = onrecord(&["search", &marker(i, rev), "--json"], index);
+        let out = onrecord(&["find", &marker(i, rev), "--json"], index);
         let text = String::from_utf8_lossy(&out.stdout);
         assert!(
             out.status.success(),
@@ -145,7 +145,7 @@ fn check(index: &Path, rev: usize, report: &serde_json::Value, history: usize) {
         assert!(text.contains(&format!("rec-{i:03}")), "search {i}: {text}");
     }
     let out = onrecord(
-        &["ask", "Who inspected the fender at berth 7?", "--json"],
+        &["answer", "Who inspected the fender at berth 7?", "--json"],
         index,
     );
     assert!(

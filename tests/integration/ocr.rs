@@ -570,7 +570,7 @@ fn an_answer_from_a_scan_replays_from_the_original_files() {
         return;
     }
     use std::process::Command;
-    // A copy of the index: `ask` logs its answer into it.
+    // A copy of the index: `answer` logs its answer into it.
     let work = tempfile::tempdir().unwrap();
     let idx = work.path().join("index");
     support::copy_dir(demo_index(), &idx);
@@ -585,13 +585,13 @@ fn an_answer_from_a_scan_replays_from_the_original_files() {
             .unwrap()
     };
     let q = "How many of the 48 pile splice welds tested by Structures Branch in September 2020 contained defects?";
-    let shown = run(&["ask", q]);
+    let shown = run(&["answer", q]);
     let text = String::from_utf8_lossy(&shown.stdout);
     assert!(
         text.contains("page read by OCR") || text.contains("check the page image"),
         "{text}"
     );
-    let out = run(&["ask", q, "--json"]);
+    let out = run(&["answer", q, "--json"]);
     let answer: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     let scanned = answer["sentences"]
         .as_array()

@@ -106,7 +106,7 @@ impl Demo {
         onrecord::demo::build(&self.src, &self.release).unwrap();
         let out = onrecord(
             &[
-                "ingest",
+                "add",
                 self.release.to_str().unwrap(),
                 "--manifest",
                 self.release.join("manifest.jsonl").to_str().unwrap(),
@@ -156,12 +156,12 @@ fn answers_replay_and_every_kind_of_change_is_caught() {
     let work = &demo.work;
 
     // ask → JSON, Markdown; each ask is logged.
-    let out = onrecord(&["ask", QUESTION, "--json"], idx);
+    let out = onrecord(&["answer", QUESTION, "--json"], idx);
     assert_eq!(out.status.code(), Some(0), "{}", stderr(&out));
     let answer_json = write(work, "answer.json", out.stdout.clone());
     let answer: Value = serde_json::from_slice(&out.stdout).unwrap();
     assert_eq!(answer["abstained"], false, "{answer:#}");
-    let out = onrecord(&["ask", QUESTION, "--markdown"], idx);
+    let out = onrecord(&["answer", QUESTION, "--markdown"], idx);
     assert_eq!(out.status.code(), Some(0), "{}", stderr(&out));
     let md = stdout(&out);
     let answer_md = write(work, "answer.md", &md);
@@ -362,7 +362,7 @@ fn answers_replay_and_every_kind_of_change_is_caught() {
     assert_eq!(r["sentences"][si]["citations"][ci]["status"], "missing");
     assert!(r["sentences"][si]["reason"].as_str().unwrap().contains(doc));
     let fresh = work.join("fresh-index");
-    let out = onrecord(&["ingest", release, "--quiet"], &fresh);
+    let out = onrecord(&["add", release, "--quiet"], &fresh);
     assert_eq!(out.status.code(), Some(0), "{}", stderr(&out));
     let r = replay_json(&[a], &fresh, 1);
     assert_eq!(r["sentences"][si]["verdict"], "source_missing", "{r:#}");
@@ -377,10 +377,7 @@ fn unusable_input_exits_2_and_names_the_file() {
         "doc.txt",
         "The harbour board met on 3 June 2020.",
     );
-    let out = onrecord(
-        &["ingest", tmp.path().join("doc.txt").to_str().unwrap()],
-        &idx,
-    );
+    let out = onrecord(&["add", tmp.path().join("doc.txt").to_str().unwrap()], &idx);
     assert_eq!(out.status.code(), Some(0), "{}", stderr(&out));
     let cases: Vec<(PathBuf, &str)> = vec![
         (
@@ -446,12 +443,12 @@ fn csv_exports_read_back_with_a_general_purpose_reader() {
         "Minutes of the Tollmere Water Board.\n\nThe board approved the \"Eastbank\" reservoir contract, worth $2,450,000, on 3 June 2020. \
          The chair, Ms. Ardley, said the price was fair.",
     );
-    let out = onrecord(&["ingest", tmp.path().to_str().unwrap()], &idx);
+    let out = onrecord(&["add", tmp.path().to_str().unwrap()], &idx);
     assert_eq!(out.status.code(), Some(0), "{}", stderr(&out));
     let question = "What did the board approve, and for how much\n(the \"Eastbank\" contract)?";
-    let json = onrecord(&["ask", question, "--json"], &idx);
+    let json = onrecord(&["answer", question, "--json"], &idx);
     let answer: Value = serde_json::from_slice(&json.stdout).unwrap();
-    let csv_out = onrecord(&["ask", question, "--csv"], &idx);
+    let csv_out = onrecord(&["answer", question, "--csv"], &idx);
     assert_eq!(csv_out.status.code(), Some(0), "{}", stderr(&csv_out));
     assert!(
         csv_out.stdout.windows(2).any(|w| w == b"\r\n"),

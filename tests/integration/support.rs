@@ -300,7 +300,7 @@ pub fn copy_dir(from: &Path, to: &Path) {
     }
 }
 
-/// `onrecord serve` on a free loopback port, in its own runtime thread,
+/// `onrecord web` on a free loopback port, in its own runtime thread,
 /// stopped when dropped.
 pub struct TestServer {
     pub addr: std::net::SocketAddr,

@@ -100,7 +100,7 @@ const REOPENING: &str =
     "On what date did the rebuilt Aubrel Bay Ferry Terminal reopen to ferry traffic?";
 
 async fn ask(app: &Router, question: &str) -> (Value, Option<u64>) {
-    let r = send(app, post("/api/ask", &json!({"question": question}))).await;
+    let r = send(app, post("/api/question", &json!({"question": question}))).await;
     assert_eq!(r.status, StatusCode::OK, "{}", r.text());
     let id = r
         .headers
@@ -210,9 +210,9 @@ async fn info_offers_what_the_store_and_server_have() {
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn search_returns_the_record_the_cli_prints() {
     let app = plain();
-    let body = json!({"query": "vehicle ramp load test", "k": 5,
+    let body = json!({"query": "vehicle ramp load test", "passages": 5,
                       "filters": {"org": "Port Aubrel Harbour Authority"}});
-    let r = send(&app, post("/api/search", &body)).await;
+    let r = send(&app, post("/api/find", &body)).await;
     assert_eq!(r.status, StatusCode::OK, "{}", r.text());
     let got = r.json();
     let idx = onrecord::retrieve::Index::open(web_index()).unwrap();
@@ -300,7 +300,7 @@ async fn the_stream_reports_each_stage_then_the_answer() {
     let app = plain();
     let r = send(
         &app,
-        post("/api/ask/stream", &json!({"question": REOPENING})),
+        post("/api/question/stream", &json!({"question": REOPENING})),
     )
     .await;
     assert_eq!(r.status, StatusCode::OK);
@@ -324,7 +324,7 @@ async fn the_stream_reports_each_stage_then_the_answer() {
             .any(|s| s["verdict"] == "supported")
     );
     // A bad request fails before the stream starts, as a plain 4xx.
-    let r = send(&app, post("/api/ask/stream", &json!({"question": ""}))).await;
+    let r = send(&app, post("/api/question/stream", &json!({"question": ""}))).await;
     assert_eq!(r.status, StatusCode::BAD_REQUEST);
 }
 
@@ -381,7 +381,7 @@ async fn the_page_view_marks_exactly_the_quote() {
 async fn exports_match_the_cli_formats_and_replay_catches_a_changed_quote() {
     let app = plain();
     let (a, _) = ask(&app, REOPENING).await;
-    // CSV: the columns `ask --csv` writes, one row per citation.
+    // CSV: the columns `answer --csv` writes, one row per citation.
     let r = send(&app, post("/api/export?format=csv", &a)).await;
     assert_eq!(r.status, StatusCode::OK, "{}", r.text());
     let disposition = r.headers["content-disposition"].to_str().unwrap();
@@ -442,7 +442,7 @@ async fn exports_match_the_cli_formats_and_replay_catches_a_changed_quote() {
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn docs_lists_what_docs_json_lists() {
     let app = plain();
-    let r = send(&app, get("/api/docs?org=Transit")).await;
+    let r = send(&app, get("/api/records?org=Transit")).await;
     assert_eq!(r.status, StatusCode::OK);
     let v = r.json();
     let rows = v.as_array().unwrap();
@@ -451,7 +451,7 @@ async fn docs_lists_what_docs_json_lists() {
         rows.iter()
             .all(|d| d["organisation"] == "Kestrava Transit Corporation")
     );
-    let r = send(&app, get("/api/docs?from=2024-01-01")).await;
+    let r = send(&app, get("/api/records?from=2024-01-01")).await;
     assert!(
         r.json()
             .as_array()
@@ -468,22 +468,22 @@ async fn bad_input_gets_a_4xx_that_says_what_to_change() {
     let big = json!({"question": "x".repeat(200_000)});
     #[rustfmt::skip]
     let cases: Vec<(&str, Request<Body>, StatusCode, &str)> = vec![
-        ("no question", post("/api/ask", &json!({})), StatusCode::UNPROCESSABLE_ENTITY, "question"),
-        ("empty question", post("/api/ask", &json!({"question": "  "})), StatusCode::BAD_REQUEST, "question is empty"),
-        ("long question", post("/api/ask", &json!({"question": long})), StatusCode::BAD_REQUEST, "the limit is 1000"),
-        ("k 0", post("/api/ask", &json!({"question": "q", "k": 0})), StatusCode::BAD_REQUEST, "k must be 1 to 50"),
-        ("k huge", post("/api/search", &json!({"query": "q", "k": 5000})), StatusCode::BAD_REQUEST, "k must be 1 to 50"),
-        ("retriever", post("/api/ask", &json!({"question": "q", "retriever": "magic"})), StatusCode::BAD_REQUEST, "unknown retriever"),
-        ("no embedder", post("/api/search", &json!({"query": "q", "retriever": "hybrid"})), StatusCode::BAD_REQUEST, "needs the embedding model"),
-        ("drafter", post("/api/ask", &json!({"question": "q", "drafter": "oracle"})), StatusCode::BAD_REQUEST, "not available"),
-        ("judge", post("/api/ask", &json!({"question": "q", "judge": "vibes"})), StatusCode::BAD_REQUEST, "unknown judge"),
-        ("bad date", post("/api/ask", &json!({"question": "q", "filters": {"from": "2021-13-01"}})), StatusCode::BAD_REQUEST, "filters.from"),
-        ("empty range", post("/api/ask", &json!({"question": "q", "filters": {"from": "2023-01-01", "to": "2022-01-01"}})), StatusCode::BAD_REQUEST, "date range is empty"),
-        ("unknown doc", post("/api/ask", &json!({"question": "q", "filters": {"docs": ["no-such-doc"]}})), StatusCode::BAD_REQUEST, "no document \"no-such-doc\""),
-        ("unknown field", post("/api/ask", &json!({"question": "q", "temperature": 2})), StatusCode::UNPROCESSABLE_ENTITY, "unknown field"),
-        ("not JSON", post_raw("/api/ask", "application/json", "{question:".into()), StatusCode::BAD_REQUEST, ""),
-        ("form post", post_raw("/api/ask", "application/x-www-form-urlencoded", "question=q".into()), StatusCode::UNSUPPORTED_MEDIA_TYPE, ""),
-        ("too big", post("/api/ask", &big), StatusCode::PAYLOAD_TOO_LARGE, "larger than this server accepts"),
+        ("no question", post("/api/question", &json!({})), StatusCode::UNPROCESSABLE_ENTITY, "question"),
+        ("empty question", post("/api/question", &json!({"question": "  "})), StatusCode::BAD_REQUEST, "question is empty"),
+        ("long question", post("/api/question", &json!({"question": long})), StatusCode::BAD_REQUEST, "the limit is 1000"),
+        ("k 0", post("/api/question", &json!({"question": "q", "passages": 0})), StatusCode::BAD_REQUEST, "passages must be 1 to 50"),
+        ("k huge", post("/api/find", &json!({"query": "q", "passages": 5000})), StatusCode::BAD_REQUEST, "passages must be 1 to 50"),
+        ("retriever", post("/api/question", &json!({"question": "q", "retriever": "magic"})), StatusCode::BAD_REQUEST, "unknown retriever"),
+        ("no embedder", post("/api/find", &json!({"query": "q", "retriever": "hybrid"})), StatusCode::BAD_REQUEST, "needs the embedding model"),
+        ("drafter", post("/api/question", &json!({"question": "q", "drafter": "oracle"})), StatusCode::BAD_REQUEST, "not available"),
+        ("judge", post("/api/question", &json!({"question": "q", "judge": "vibes"})), StatusCode::BAD_REQUEST, "unknown judge"),
+        ("bad date", post("/api/question", &json!({"question": "q", "filters": {"from": "2021-13-01"}})), StatusCode::BAD_REQUEST, "filters.from"),
+        ("empty range", post("/api/question", &json!({"question": "q", "filters": {"from": "2023-01-01", "to": "2022-01-01"}})), StatusCode::BAD_REQUEST, "date range is empty"),
+        ("unknown doc", post("/api/question", &json!({"question": "q", "filters": {"docs": ["no-such-doc"]}})), StatusCode::BAD_REQUEST, "no document \"no-such-doc\""),
+        ("unknown field", post("/api/question", &json!({"question": "q", "temperature": 2})), StatusCode::UNPROCESSABLE_ENTITY, "unknown field"),
+        ("not JSON", post_raw("/api/question", "application/json", "{question:".into()), StatusCode::BAD_REQUEST, ""),
+        ("form post", post_raw("/api/question", "application/x-www-form-urlencoded", "question=q".into()), StatusCode::UNSUPPORTED_MEDIA_TYPE, ""),
+        ("too big", post("/api/question", &big), StatusCode::PAYLOAD_TOO_LARGE, "larger than this server accepts"),
         ("no page", get("/api/page?doc=paha-web-2024-04-pier3-reopening&page=99"), StatusCode::NOT_FOUND, "has no page 99"),
         ("no doc", get("/api/page?doc=nope&page=1"), StatusCode::NOT_FOUND, "no document"),
         ("page not a number", get("/api/page?doc=nope&page=one"), StatusCode::BAD_REQUEST, ""),
@@ -528,13 +528,13 @@ async fn with_a_token_nothing_answers_without_it() {
         get("/"),
         get("/app.js"),
         get("/api/info"),
-        get("/api/docs"),
+        get("/api/records"),
         get("/api/page?doc=x&page=1"),
         get("/api/answers"),
         get("/api/answers/1"),
-        post("/api/search", &json!({"query": "q"})),
-        post("/api/ask", &json!({"question": REOPENING})),
-        post("/api/ask/stream", &json!({"question": REOPENING})),
+        post("/api/find", &json!({"query": "q"})),
+        post("/api/question", &json!({"question": REOPENING})),
+        post("/api/question/stream", &json!({"question": REOPENING})),
         post("/api/export", &json!({})),
         post("/api/replay", &json!({"text": "x"})),
         get("/api/nothing-here"),
@@ -568,7 +568,7 @@ async fn with_a_token_nothing_answers_without_it() {
             "{wrong}"
         );
     }
-    // The address printed by `serve`: the token moves into a cookie and out
+    // The address printed by `web`: the token moves into a cookie and out
     // of the address bar.
     let r = send(&app, get(&format!("/?token={TOKEN}"))).await;
     assert_eq!(r.status, StatusCode::SEE_OTHER);
@@ -579,7 +579,7 @@ async fn with_a_token_nothing_answers_without_it() {
         "{cookie}"
     );
     let pair = cookie.split(';').next().unwrap();
-    let req = Request::post("/api/ask")
+    let req = Request::post("/api/question")
         .header(header::HOST, HOST)
         .header(header::COOKIE, format!("theme=plain; {pair}"))
         .header(header::CONTENT_TYPE, "application/json")
@@ -661,7 +661,7 @@ async fn a_full_queue_is_refused_with_429() {
         ..Limits::default()
     };
     let app = router(None, limits);
-    let r = send(&app, post("/api/ask", &json!({"question": REOPENING}))).await;
+    let r = send(&app, post("/api/question", &json!({"question": REOPENING}))).await;
     assert_eq!(r.status, StatusCode::TOO_MANY_REQUESTS);
     assert!(r.error().contains("busy"));
 }
@@ -740,7 +740,7 @@ fn load_fifty_clients_over_loopback() {
     let results: Vec<Vec<(u16, f64)>> = std::thread::scope(|s| {
         let handles: Vec<_> = (0..CLIENTS)
             .map(|c| {
-                let url = format!("http://{}/api/ask", server.addr);
+                let url = format!("http://{}/api/question", server.addr);
                 let questions = &questions;
                 s.spawn(move || {
                     let client = reqwest::blocking::Client::builder()
@@ -895,7 +895,7 @@ async fn a_local_model_streams_its_draft_before_the_verified_answer() {
     let r = send(
         &app,
         post(
-            "/api/ask/stream",
+            "/api/question/stream",
             &json!({"question": REOPENING, "drafter": "local"}),
         ),
     )
@@ -910,7 +910,7 @@ async fn a_local_model_streams_its_draft_before_the_verified_answer() {
     assert!(!drafted.trim().is_empty(), "draft events");
     let (last, _, record) = ev.last().unwrap();
     assert_eq!(last, "answer", "{record}");
-    // The record keeps the model's raw draft, as `ask --json` does.
+    // The record keeps the model's raw draft, as `answer --json` does.
     assert_eq!(
         record["draft"]["raw"].as_str().unwrap().trim(),
         drafted.trim()

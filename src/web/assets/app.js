@@ -83,10 +83,10 @@
 
   function request() {
     const doc = $("doc").value;
-    const k = parseInt($("k").value, 10);
+    const n = parseInt($("passages").value, 10);
     return {
       question: $("question").value,
-      k: Number.isFinite(k) ? k : 10,
+      passages: Number.isFinite(n) ? n : 10,
       retriever: $("retriever").value || undefined,
       drafter: $("drafter").value || undefined,
       filters: {
@@ -115,7 +115,7 @@
     clear($("draft-text"));
     show($("draft"), false);
     try {
-      const resp = await fetch("/api/ask/stream", {
+      const resp = await fetch("/api/question/stream", {
         method: "POST",
         credentials: "same-origin",
         headers: { "Content-Type": "application/json", Accept: "text/event-stream" },
@@ -191,56 +191,89 @@
     show(box, true);
   }
 
-  // ---- The answer ------------------------------------------------------
+  // ---- The answer: a ledger ------------------------------------------
+  // Each verified sentence is a numbered claim; beneath it, for each of its
+  // citations, the page's words, where they are (doc-id · p. N) and a button
+  // that opens the page inside the claim, the quoted words marked.
+  function whereLine(c) {
+    const what = [c.title, c.organisation, c.date].filter(Boolean).join(", ");
+    return el(
+      "p",
+      { class: "where" },
+      el("span", { class: "ref", text: `${c.doc_id} · ${pagesLabel(c)}` }),
+      el("span", { class: "what", text: " — " + what }),
+    );
+  }
+
+  function ocrNote(c) {
+    if (!c.ocr) return null;
+    const low = c.ocr.low;
+    const text = low
+      ? `Low OCR confidence: ${Math.round(c.ocr.confidence)}% on this quote` +
+        (c.ocr.weakest_conf < 50 ? ` (“${c.ocr.weakest_word}” ${Math.round(c.ocr.weakest_conf)}%)` : "") +
+        ". Check the page image before quoting."
+      : `This page was read by OCR; confidence ${Math.round(c.ocr.confidence)}% on this quote.`;
+    return el("p", { class: low ? "ocr-note ocr-low" : "ocr-note", text });
+  }
+
+  function openButton(c, holder, sentence) {
+    const b = el(
+      "button",
+      {
+        type: "button",
+        class: "open-page",
+        "aria-expanded": "false",
+        "aria-controls": "page-panel",
+        "aria-label": `Open ${pagesLabel(c)} of ${c.title} here${sentence ? ", under the sentence it proves" : ""}`,
+      },
+      `Open ${pagesLabel(c)} here`,
+    );
+    b.addEventListener("click", () => openPage(c, holder, b));
+    return b;
+  }
+
+  function evidence(c, claim, sentence) {
+    const box = el(
+      "div",
+      { class: "evidence" },
+      el("span", { class: "label", text: c.quoted_as ? "The page reads" : "Proof" }),
+      el("blockquote", { class: "quote", text: c.quote }),
+      whereLine(c),
+    );
+    if (c.quoted_as) box.append(el("p", { class: "drafted", text: `Drafted as: “${c.quoted_as}”` }));
+    if (c.corrected_from) box.append(el("p", { class: "drafted", text: "The drafter cited another passage; the quote is here." }));
+    const note = ocrNote(c);
+    if (note) box.append(note);
+    box.append(openButton(c, claim, sentence));
+    return box;
+  }
+
   function renderAnswer(a, id) {
     const list = $("answer");
-    const sources = $("sources");
+    closePage(false);
     clear(list);
-    clear(sources);
     clear($("struck-list"));
     show($("answer-empty"), false);
-    $("answer-question").textContent = "Question: " + a.question;
+    $("answer-question").textContent = "Asked: " + a.question;
     show($("answer-question"), true);
-
-    // One footnote number per distinct document page and quote.
-    const notes = [];
-    const key = (c) => `${c.doc_id}\u0000${c.page}\u0000${c.start_char}\u0000${c.end_char}`;
-    const numberOf = (c) => {
-      const k = key(c);
-      let i = notes.findIndex((n) => n.key === k);
-      if (i < 0) {
-        notes.push({ key: k, c });
-        i = notes.length - 1;
-      }
-      return i + 1;
-    };
 
     const supported = a.sentences.filter((s) => s.verdict === "supported");
     const struck = a.sentences.filter((s) => s.verdict === "struck");
     for (const s of supported) {
-      const li = el("li", { class: "verified" }, el("span", { class: "sentence", text: s.text }));
-      for (const c of s.citations) {
-        const n = numberOf(c);
-        const b = el("button", {
-          type: "button",
-          class: "fn",
-          "data-note": String(n),
-          "aria-label": `Source ${n}: ${c.title}, ${pagesLabel(c)}. Open the page`,
-        }, `[${n}]`);
-        b.addEventListener("click", () => openPage(c));
-        li.append(" ", b);
-      }
+      const li = el("li", { class: "claim" }, el("p", { class: "sentence", text: s.text }));
+      for (const c of s.citations) li.append(evidence(c, li, s.text));
       list.append(li);
     }
 
     if (a.abstained) {
       $("abstained").textContent =
-        "No sentence in the records found supports an answer" + (a.abstain_reason ? ": " + a.abstain_reason + "." : ".");
+        "Not answered: no sentence in the records found supports an answer" +
+        (a.abstain_reason ? ": " + a.abstain_reason + "." : ".");
     }
     show($("abstained"), a.abstained);
 
-    // Sentences that are not answers: a declined answer's closest ones,
-    // and supported sentences about something else. Each opens its page.
+    // Sentences that are not answers: a declined answer's nearest ones, and
+    // supported sentences about something else. Each can open its page.
     const notAnswers = (listId, boxId, items, why) => {
       const list = $(listId);
       clear(list);
@@ -248,45 +281,16 @@
         const li = el("li", {}, el("span", { class: "text", text: "“" + s.text + "”" }));
         const c = (s.citations || [])[0];
         if (c) {
-          li.append(el("span", { class: "meta", text: ` ${c.title}, ${pagesLabel(c)} (${c.doc_id})` }));
-          const open = el("button", { type: "button", class: "open-page" }, `Open ${pagesLabel(c)}`);
-          open.addEventListener("click", () => openPage(c));
-          li.append(" ", open);
+          li.append(el("span", { class: "meta", text: `${c.doc_id} · ${pagesLabel(c)} — ${c.title}` }));
         }
         li.append(el("span", { class: "reason", text: why(s) }));
+        if (c) li.append(openButton(c, li, null));
         list.append(li);
       }
       show($(boxId), (items || []).length > 0);
     };
     notAnswers("closest-list", "closest-box", a.closest, (s) => "Not an answer: " + s.why_not);
     notAnswers("off-list", "off-box", a.off_question, (s) => "Why: " + (s.reason || "about something else"));
-
-    notes.forEach((n, i) => {
-      const c = n.c;
-      const meta = [c.organisation, c.date, pagesLabel(c)].filter(Boolean).join(" · ");
-      const open = el("button", { type: "button", class: "open-page" }, `Open ${pagesLabel(c)}`);
-      open.addEventListener("click", () => openPage(c));
-      const li = el(
-        "li",
-        { id: `source-${i + 1}` },
-        el("div", { class: "title", text: c.title }),
-        el("p", { class: "meta", text: `${meta} (${c.doc_id})` }),
-        el("blockquote", { text: c.quote }),
-      );
-      if (c.quoted_as) li.append(el("p", { class: "meta", text: `Drafted as: “${c.quoted_as}”` }));
-      if (c.ocr) {
-        const low = c.ocr.low;
-        const text = low
-          ? `Low OCR confidence: ${Math.round(c.ocr.confidence)}% on this quote` +
-            (c.ocr.weakest_conf < 50 ? ` (“${c.ocr.weakest_word}” ${Math.round(c.ocr.weakest_conf)}%)` : "") +
-            ". Check the page image before quoting."
-          : `This page was read by OCR; confidence ${Math.round(c.ocr.confidence)}% on this quote.`;
-        li.append(el("p", { class: low ? "ocr-note ocr-low" : "ocr-note", text }));
-      }
-      li.append(open);
-      sources.append(li);
-    });
-    show($("sources-empty"), notes.length === 0);
 
     for (const s of struck) {
       const li = el(
@@ -300,7 +304,7 @@
     const toggle = $("struck-toggle");
     toggle.setAttribute("aria-expanded", "false");
     show($("struck"), false);
-    toggle.textContent = `Show struck sentences (${struck.length})`;
+    toggle.textContent = `Show what the verifier struck (${struck.length})`;
     show($("struck-none"), struck.length === 0);
     show($("struck-box"), true);
 
@@ -317,15 +321,33 @@
     t.setAttribute("aria-expanded", String(open));
     show($("struck"), open);
     const n = $("struck-list").children.length;
-    t.textContent = `${open ? "Hide" : "Show"} struck sentences (${n})`;
+    t.textContent = `${open ? "Hide" : "Show"} what the verifier struck (${n})`;
   }
 
-  // ---- The page view -----------------------------------------------------
-  async function openPage(c) {
+  // ---- The page, opened under the claim it proves -----------------------
+  let opener = null;
+
+  function closePage(refocus) {
+    const panel = $("page-panel");
+    show(panel, false);
+    if (opener) {
+      opener.setAttribute("aria-expanded", "false");
+      if (refocus) opener.focus();
+    }
+    opener = null;
+    // Park the view back in the answer panel, so clearing the ledger keeps it.
+    $("answer-panel").insertBefore(panel, $("closest-box"));
+  }
+
+  async function openPage(c, holder, button) {
+    closePage(false);
+    const panel = $("page-panel");
+    holder.append(panel);
+    opener = button;
+    button.setAttribute("aria-expanded", "true");
     const params = new URLSearchParams({ doc: c.doc_id, page: String(c.page), from: String(c.start_char) });
     if (!c.end_page || c.end_page === c.page) params.set("to", String(c.end_char));
     const resp = await fetch("/api/page?" + params.toString(), { credentials: "same-origin" });
-    const panel = $("page-panel");
     show(panel, true);
     const box = $("page-text");
     clear(box);
@@ -335,7 +357,7 @@
     }
     const p = await resp.json();
     $("page-heading").textContent = `${p.title}, page ${p.page} of ${p.pages}`;
-    $("page-meta").textContent = [p.organisation, p.date, p.doc_id].filter(Boolean).join(" · ");
+    $("page-meta").textContent = [p.doc_id, p.organisation, p.date].filter(Boolean).join(" · ");
     if (p.ocr) {
       $("page-ocr").textContent = `This page was read by OCR (${p.ocr.reason}); mean word confidence ${Math.round(p.ocr.confidence)}%.`;
     }
@@ -439,10 +461,7 @@
     $("ask-form").addEventListener("submit", ask);
     $("replay-form").addEventListener("submit", replay);
     $("struck-toggle").addEventListener("click", toggleStruck);
-    $("page-close").addEventListener("click", () => {
-      show($("page-panel"), false);
-      $("answer-heading").focus();
-    });
+    $("page-close").addEventListener("click", () => closePage(true));
     for (const b of document.querySelectorAll("#downloads button")) {
       b.addEventListener("click", () => download(b.dataset.format));
     }
