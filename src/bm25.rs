@@ -99,12 +99,24 @@ impl Bm25Index {
 
     /// Open the index and make sure it reflects the store, rebuilding it when
     /// it does not (for example after a crash between the two commits).
+    ///
+    /// While another process holds the index's writer lock (an `add` is
+    /// running), the index is left as that process last committed it: the
+    /// writer brings it up to date, and a rebuild here would race it.
     pub fn open_synced(index_dir: &Path, store: &Store) -> Result<Bm25Index> {
         let idx = Bm25Index::open_or_create(index_dir)?;
         let want = store.generation()?;
         if idx.synced_generation()? != Some(want) {
-            tracing::info!("BM25 index is behind the store; rebuilding it");
-            idx.rebuild(store)?;
+            match crate::lock::try_acquire(index_dir, "BM25 rebuild", crate::lock::PATIENCE)? {
+                Ok(_writer) => {
+                    tracing::info!("BM25 index is behind the store; rebuilding it");
+                    idx.rebuild(store)?;
+                }
+                Err(holder) => tracing::debug!(
+                    "BM25 index is behind the store while {} writes; searching what is committed",
+                    holder.map_or_else(|| "another process".to_string(), |h| h.to_string())
+                ),
+            }
         }
         Ok(idx)
     }

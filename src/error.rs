@@ -36,6 +36,12 @@ pub enum Error {
     #[error("no index at {path}; run `onrecord add <PATH>` first (or pass --index)")]
     NoIndex { path: PathBuf },
 
+    #[error(
+        "index at {path} is being written by {holder}; wait for it to finish, then run this again \
+         (two writers at once would repeat each other's work)"
+    )]
+    Busy { path: PathBuf, holder: String },
+
     #[error("search index {path}: {message}")]
     Search { path: PathBuf, message: String },
 

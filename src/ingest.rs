@@ -239,6 +239,8 @@ pub fn ingest_paths(
     cfg: &IngestConfig,
 ) -> Result<(Report, Vec<Diagnostic>)> {
     let started = Instant::now();
+    // One writer per index, for the whole run.
+    let _writer = crate::lock::acquire(index_dir, "add")?;
     let mut store = Store::open_or_create(index_dir)?;
     let bm25 = Bm25Index::open_synced(index_dir, &store)?;
     let mut diags = Vec::new();
@@ -303,6 +305,7 @@ pub fn ingest_docs(
     progress: Option<u64>,
 ) -> Result<Report> {
     let started = Instant::now();
+    let _writer = crate::lock::acquire(index_dir, "add")?;
     let mut store = Store::open_or_create(index_dir)?;
     let bm25 = Bm25Index::open_synced(index_dir, &store)?;
     let bar = progress_bar(progress.is_some(), progress.unwrap_or(0), "documents");

@@ -21,6 +21,7 @@ pub mod fuse;
 pub mod ingest;
 pub mod learn;
 pub mod llm;
+pub mod lock;
 pub mod manifest;
 pub mod ocr;
 pub mod prompt;

@@ -127,11 +127,21 @@ impl Index {
         let store = Store::open(dir)?;
         let bm25 = Bm25Index::open_synced(dir, &store)?;
         let mut notes = Vec::new();
+        // An `add` running on this index: what it has committed is
+        // searched, and it brings the rest (and its vectors) in itself.
+        let writer = crate::lock::writer_elsewhere(dir);
+        if let Some(h) = &writer {
+            notes.push(format!(
+                "note: this index is being written by {h}; results cover what it has stored so far"
+            ));
+        }
         let vectors = match &embedder {
             Some(e) => {
                 let v = VectorIndex::open_synced(dir, &store, e.id(), e.dim(), DEFAULT_SCALAR)?;
                 let missing = store.count_pending_embeddings(e.id())?;
-                if v.is_empty() {
+                if writer.is_some() {
+                    // The writer embeds them; `reindex` would only repeat it.
+                } else if v.is_empty() {
                     notes.push(format!(
                         "note: no chunk has an embedding from {}; using BM25 only (run `onrecord reindex`)",
                         e.id()

@@ -21,7 +21,7 @@ use crate::types::ChunkId;
 use serde::{Deserialize, Serialize};
 use std::collections::HashSet;
 use std::path::{Path, PathBuf};
-use std::time::Instant;
+use std::time::{Duration, Instant};
 use usearch::{Index, IndexOptions, MetricKind, ScalarKind};
 
 /// Format of the files under `vectors/`. Bump on incompatible change.
@@ -186,7 +186,7 @@ impl VectorIndex {
                     exact_below: EXACT_BELOW,
                     exact_always: false,
                 };
-                vi.catch_up(store)?;
+                vi.catch_up(index_dir, store)?;
                 return Ok(vi);
             }
             tracing::info!(
@@ -235,7 +235,7 @@ impl VectorIndex {
         })?;
         vi.add_all(&pending)?;
         vi.last_sync.added = pending.len();
-        vi.save()?;
+        vi.save_unless_written(index_dir)?;
         tracing::info!(
             "vector index rebuilt: {} vectors in {:.1}s",
             pending.len(),
@@ -297,7 +297,7 @@ impl VectorIndex {
     }
 
     /// Apply changes made to the store since the index was saved.
-    fn catch_up(&mut self, store: &Store) -> Result<()> {
+    fn catch_up(&mut self, index_dir: &Path, store: &Store) -> Result<()> {
         let generation = store.generation()?;
         let (row, chunk) = store.high_water()?;
         if generation == self.state.generation
@@ -337,7 +337,19 @@ impl VectorIndex {
             removed,
             total: self.index.size(),
         };
-        self.save()
+        self.save_unless_written(index_dir)
+    }
+
+    /// Save, unless another process is writing this index: then the graph
+    /// stays in memory, and the writer saves its own when it is done.
+    fn save_unless_written(&mut self, index_dir: &Path) -> Result<()> {
+        match crate::lock::try_acquire(index_dir, "vector index update", Duration::ZERO)? {
+            Ok(_writer) => self.save(),
+            Err(_) => {
+                self.last_sync.total = self.index.size();
+                Ok(())
+            }
+        }
     }
 
     fn save(&mut self) -> Result<()> {
@@ -626,6 +638,7 @@ pub fn update_with(
     progress: bool,
     sentences: bool,
 ) -> Result<(EmbedReport, SyncReport)> {
+    let _writer = crate::lock::acquire(index_dir, "add (embedding)")?;
     let mut store = Store::open(index_dir)?;
     let report = embed_pending_with(&mut store, embedder, progress, sentences)?;
     let vi = VectorIndex::open_synced(
