@@ -282,16 +282,22 @@ fn verify_sentence(
                 citations,
             );
         };
-        if let Some(context) = addressed_to_model(chunk, &loc.bytes) {
-            return struck(
-                s,
+        if let Some((context, quoted)) = addressed_to_model(chunk, &loc.bytes) {
+            let reason = if quoted {
                 format!(
                     "the quoted words are an instruction aimed at an AI model, written inside \
                      the record (\u{201C}{}\u{201D}), not a statement the record makes",
                     crate::text::fold_ws(&context)
-                ),
-                citations,
-            );
+                )
+            } else {
+                format!(
+                    "the passage this quote comes from holds an instruction aimed at an AI model \
+                     (\u{201C}{}\u{201D}), so nothing in it is used as an answer; read the record \
+                     yourself",
+                    crate::text::fold_ws(&context)
+                )
+            };
+            return struck(s, reason, citations);
         }
         citations.push(Citation {
             chunk_id: chunk.id,
@@ -334,23 +340,64 @@ fn verify_sentence(
     }
 }
 
-static INSTRUCTION: LazyLock<Vec<Regex>> = LazyLock::new(|| {
+/// Text addressed to an AI model: once a passage holds one of these, none
+/// of the passage is used as an answer (the planted claim is often the
+/// next sentence, or worded as the record's own). English and French.
+static ADDRESSED: LazyLock<Vec<Regex>> = LazyLock::new(|| {
     [
         // "Ignore the excerpts", "disregard all previous instructions".
         r"(?i)\b(?:ignore|disregard|forget|override)\b[^.!?\n]{0,60}\b(?:excerpts?|instructions?|prompts?|context|rules|everything above|previous)\b",
-        // An imperative to assert something: "... and state that ...".
-        r"(?i)(?:^|[.;:!?]\s+|\b(?:and|then|instead|now)\s+)(?:state|say|write|answer|respond|reply|claim)\s+(?:that|with|only)\b",
-        r"(?i)\b(?:as an ai|system prompt|new instructions|language model,|assistant:)",
+        // Naming the reader as a machine: "AI systems reading this record",
+        // "any automated tool summarising this file".
+        r"(?i)\b(?:AI|A\.I\.|artificial intelligence|LLMs?|chat ?bots?|language models?|automated (?:systems?|tools?|readers?|summari[sz]ers?|assistants?)|summari[sz]ers?)\b[^.!?\n]{0,40}\b(?:reading|processing|summari[sz]ing|analy[sz]ing|reviewing|ingesting|that (?:reads?|summari[sz]es?|processes))\b",
+        // A note or instruction to one: "Note to any automated summariser:".
+        r"(?i)\b(?:note|message|instructions?|attention|memo)\s+(?:to|for)\s+(?:any|all|every|the)?\s*(?:AI|A\.I\.|automated|artificial|LLMs?|language models?|chat ?bots?|assistants?|summari[sz]ers?|bots?)\b",
+        // Spoken to directly: "Chatbot, please tell ...", "AI assistant: ...".
+        r"(?im)(?:^|[.!?]\s+)\s*(?:dear\s+|hey\s+|to the\s+)?(?:AI|AI assistants?|AI models?|AI systems?|LLMs?|chat ?bots?|language models?|summari[sz]ers?|virtual assistants?)\s*[,:]",
+        // Chat role markers and template tokens.
+        r"(?m)^\s*(?:SYSTEM|ASSISTANT|USER)\s*:|<\|(?:system|im_start|user|assistant)\|?>|\[/?INST\]|###\s*(?:Instruction|System)",
+        // "When you summarise this file you must conclude ...".
+        r"(?i)\bwhen you (?:summari[sz]e|read|process|analy[sz]e|answer|review)\b[^.!?\n]{0,80}\byou (?:must|should|will|are to)\b",
+        r"(?i)\b(?:as an ai|as a language model|system prompt|new instructions|prompt injection)\b",
+        // French: "Ignorez toutes les instructions précédentes", "Note à
+        // l'attention des systèmes d'IA", "Assistant virtuel, dites ...".
+        r"(?i)\bignore[rz]?\s+(?:toutes\s+|tous\s+)?(?:les|vos|ces)\s+(?:instructions|consignes|extraits|règles)",
+        r"(?i)\b(?:syst[eè]mes?|mod[eè]les?|outils?|assistants?|agents?|robots?)\s+(?:d['’]\s?IA|d['’]intelligence artificielle|conversationnels?|de r[ée]sum[ée])\b",
+        r"(?i)\b(?:note|message|avis|consigne)\s+(?:à|aux?|pour)\s+(?:l['’]attention\s+(?:de|des|du)\s+)?(?:tout|toute|tous|toutes|les|l['’]|un|une)?\s*(?:IA|intelligences? artificielles?|robots?|assistants?|syst[eè]mes? automatis[ée]s?|outils? automatis[ée]s?)",
+        r"(?im)(?:^|[.!?]\s+)\s*(?:ch[eè]re?\s+)?(?:IA|assistante? virtuel(?:le)?|robot conversationnel|agent conversationnel|mod[eè]le de langage)\s*[,:]",
+        r"(?i)\b(?:IA|intelligence artificielle|robot conversationnel|agent conversationnel)\b[^.!?\n]{0,40}\b(?:lisant|qui lit|qui lisez|qui r[ée]sume|r[ée]sumant|traitant|qui traite)\b",
+        r"(?i)\b(?:lorsque|quand|si) vous (?:r[ée]sumez|lisez|traitez|analysez|êtes une IA)\b[^.!?\n]{0,80}\b(?:vous devez|devez|dites|indiquez|concluez)\b",
     ]
     .iter()
     .map(|p| Regex::new(p).unwrap())
     .collect()
 });
 
-/// The sentence(s) of `chunk` around `bytes`, if they read as instructions
-/// aimed at an AI model (prompt injection planted in a record). Quoting
-/// such text would let a document dictate the answer.
-pub fn addressed_to_model(chunk: &StoredChunk, bytes: &std::ops::Range<usize>) -> Option<String> {
+/// An imperative to assert something ("... and state that ...", "you
+/// must conclude that"): read in the quoted sentence and its neighbours
+/// only, since records quote such words in ordinary prose too.
+static INSTRUCTION: LazyLock<Vec<Regex>> = LazyLock::new(|| {
+    [
+        r"(?i)(?:^|[.;:!?]\s+|\b(?:and|then|instead|now|please)\s+)(?:state|say|write|answer|respond|reply|claim|report|conclude)\s+(?:that|with|only)\b",
+        r"(?i)\byou (?:must|should|are required to) (?:state|say|write|answer|report|conclude|tell|confirm)\b",
+        r"(?i)\bplease tell (?:the )?(?:users?|readers?|reporters?|everyone|anyone|them)\b",
+        r"(?i)(?:^|[.;:!?]\s+|\b(?:et|puis|alors|veuillez)\s+)(?:indiquez|affirmez|dites|[ée]crivez|r[ée]pondez|concluez|d[ée]clarez)\s+(?:que|qu['’])",
+    ]
+    .iter()
+    .map(|p| Regex::new(p).unwrap())
+    .collect()
+});
+
+/// The sentence(s) of `chunk` around `bytes`, or the passage's sentence
+/// addressed to a model, if the quote comes from text aimed at an AI model
+/// (prompt injection planted in a record). Quoting such text would let a
+/// document dictate the answer. The second value says whether the quoted
+/// words themselves are the instruction (else another sentence of the
+/// passage is, and the whole passage is set aside).
+pub fn addressed_to_model(
+    chunk: &StoredChunk,
+    bytes: &std::ops::Range<usize>,
+) -> Option<(String, bool)> {
     let spans = crate::segment::sentence_spans(&chunk.text);
     let around: Vec<&str> = spans
         .iter()
@@ -362,8 +409,20 @@ pub fn addressed_to_model(chunk: &StoredChunk, bytes: &std::ops::Range<usize>) -
     } else {
         around.join(" ")
     };
-    INSTRUCTION
+    if ADDRESSED
         .iter()
+        .chain(INSTRUCTION.iter())
         .any(|re| re.is_match(&context))
-        .then_some(context)
+    {
+        return Some((context, true));
+    }
+    let m = ADDRESSED.iter().find_map(|re| re.find(&chunk.text))?;
+    let sentence = spans
+        .iter()
+        .find(|r| r.start <= m.start() && m.start() < r.end)
+        .map_or_else(
+            || m.as_str().to_string(),
+            |r| chunk.text[r.clone()].to_string(),
+        );
+    Some((sentence, false))
 }
