@@ -1180,6 +1180,7 @@ pub fn run() -> Result<ExitCode> {
                     write!(out, "{}", onrecord::replay::markdown::render_answer(&a))?
                 }
                 Export::Text => {
+                    let mut out = onrecord::text::Printable::new(&mut out);
                     write!(out, "{}", answer::render_text(&a))?;
                     if let Some(n) = logged {
                         writeln!(
@@ -2415,7 +2416,11 @@ fn cmd_replay(args: ReplayArgs, format: Export) -> Result<ExitCode> {
         Export::Json => print_json(&report)?,
         Export::Csv => replay::table::write_replay(&report, &mut out)?,
         Export::Markdown => write!(out, "{}", replay::markdown::render_replay(&report))?,
-        Export::Text => write!(out, "{}", replay::render_text(&report))?,
+        Export::Text => write!(
+            onrecord::text::Printable::new(&mut out),
+            "{}",
+            replay::render_text(&report)
+        )?,
     }
     Ok(ExitCode::from(report.exit_code))
 }
@@ -2434,7 +2439,7 @@ fn cmd_history(index: &std::path::Path, limit: usize, json: bool) -> Result<Exit
         );
         return Ok(ExitCode::SUCCESS);
     }
-    let mut out = std::io::stdout().lock();
+    let mut out = onrecord::text::Printable::new(std::io::stdout().lock());
     writeln!(
         out,
         "{:>5}  {:<20}  {:<16}  Question",
@@ -2598,6 +2603,8 @@ fn cmd_search(
         if let Some(d) = &c.date {
             head.push_str(&format!(", {d}"));
         }
+        // Record text is shown, never obeyed, on a terminal.
+        let head = onrecord::text::printable(&head);
         let score = match used {
             RetrieverKind::Hybrid => format!("fused {:.4}", h.score),
             RetrieverKind::Dense => format!("cosine {:.3}", h.score),
@@ -2650,16 +2657,17 @@ fn mark(s: &retrieve::Snippet, tty: bool) -> String {
     } else {
         ("«", "»")
     };
+    use onrecord::text::printable;
     let mut out = String::new();
     let mut at = 0;
     for &(a, b) in &s.highlights {
-        out.push_str(&s.text[at..a]);
+        out.push_str(&printable(&s.text[at..a]));
         out.push_str(open);
-        out.push_str(&s.text[a..b]);
+        out.push_str(&printable(&s.text[a..b]));
         out.push_str(close);
         at = b;
     }
-    out.push_str(&s.text[at..]);
+    out.push_str(&printable(&s.text[at..]));
     out
 }
 
@@ -2738,7 +2746,7 @@ fn cmd_docs(index: &std::path::Path, filters: &Filters, json: bool) -> Result<Ex
         .into_iter()
         .filter(|d| allowed.as_ref().is_none_or(|a| a.contains(&d.doc_id)))
         .collect();
-    let mut out = std::io::stdout().lock();
+    let mut out = onrecord::text::Printable::new(std::io::stdout().lock());
     if json {
         print_json(&docs)?;
     } else {
@@ -2839,7 +2847,7 @@ fn cmd_demo(
         }
     )?;
     drop(err);
-    let mut out = std::io::stdout().lock();
+    let mut out = onrecord::text::Printable::new(std::io::stdout().lock());
     let selector = onrecord::select::Selector::default();
     for q in onrecord::demo::SAMPLE_QUESTIONS {
         let a = ask_one(

@@ -346,9 +346,156 @@ pub fn normalize(s: &str) -> Normalized {
     Normalized { text, src }
 }
 
+/// A writer for text meant for a terminal: control characters from records
+/// (escape sequences that retitle a window, clear the screen or move the
+/// cursor; carriage returns that overwrite a line; C1 controls) are shown
+/// as visible symbols instead of being acted on. Line feeds and tabs pass.
+/// JSON and the file exports are not written through it: JSON escapes
+/// controls itself, and a Markdown answer must keep the page's characters
+/// to replay.
+pub struct Printable<W: std::io::Write> {
+    inner: W,
+    /// A 0xC2 byte seen at the end of the last write (C1 controls are
+    /// 0xC2 0x80..=0x9F in UTF-8).
+    pending_c2: bool,
+}
+
+impl<W: std::io::Write> Printable<W> {
+    pub fn new(inner: W) -> Self {
+        Printable {
+            inner,
+            pending_c2: false,
+        }
+    }
+}
+
+/// The visible stand-in for a C0 control byte or DEL: the Unicode control
+/// pictures (U+2400 + byte, U+2421 for DEL).
+fn control_picture(b: u8) -> char {
+    if b == 0x7f {
+        '\u{2421}'
+    } else {
+        char::from_u32(0x2400 + u32::from(b)).unwrap_or('\u{FFFD}')
+    }
+}
+
+/// `s` with its control characters (but line feeds and tabs) shown as
+/// [`Printable`] shows them, for text that is mixed with the program's own
+/// terminal styling before it is written.
+pub fn printable(s: &str) -> std::borrow::Cow<'_, str> {
+    if !s.chars().any(|c| c.is_control() && c != '\n' && c != '\t') {
+        return std::borrow::Cow::Borrowed(s);
+    }
+    s.chars()
+        .map(|c| match c {
+            '\n' | '\t' => c,
+            '\u{0}'..='\u{1f}' | '\u{7f}' => control_picture(c as u8),
+            c if c.is_control() => '\u{FFFD}',
+            c => c,
+        })
+        .collect::<String>()
+        .into()
+}
+
+impl<W: std::io::Write> std::io::Write for Printable<W> {
+    fn write(&mut self, buf: &[u8]) -> std::io::Result<usize> {
+        let mut out = Vec::with_capacity(buf.len() + 8);
+        let mut i = 0;
+        if self.pending_c2 {
+            self.pending_c2 = false;
+            match buf.first() {
+                Some(&b) if (0x80..=0x9f).contains(&b) => {
+                    out.extend_from_slice("\u{FFFD}".as_bytes());
+                    i = 1;
+                }
+                _ => out.push(0xc2),
+            }
+        }
+        while i < buf.len() {
+            let b = buf[i];
+            match b {
+                b'\n' | b'\t' => out.push(b),
+                0x00..=0x1f | 0x7f => {
+                    let mut tmp = [0u8; 4];
+                    out.extend_from_slice(control_picture(b).encode_utf8(&mut tmp).as_bytes());
+                }
+                0xc2 if i + 1 == buf.len() => self.pending_c2 = true,
+                0xc2 if (0x80..=0x9f).contains(&buf[i + 1]) => {
+                    out.extend_from_slice("\u{FFFD}".as_bytes());
+                    i += 1;
+                }
+                _ => out.push(b),
+            }
+            i += 1;
+        }
+        self.inner.write_all(&out)?;
+        Ok(buf.len())
+    }
+
+    fn flush(&mut self) -> std::io::Result<()> {
+        if std::mem::take(&mut self.pending_c2) {
+            self.inner.write_all(&[0xc2])?;
+        }
+        self.inner.flush()
+    }
+}
+
+impl<W: std::io::Write> Drop for Printable<W> {
+    fn drop(&mut self) {
+        let _ = std::io::Write::flush(self);
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    fn printable(parts: &[&[u8]]) -> String {
+        use std::io::Write;
+        let mut buf = Vec::new();
+        {
+            let mut w = Printable::new(&mut buf);
+            for p in parts {
+                w.write_all(p).unwrap();
+            }
+        }
+        String::from_utf8(buf).unwrap()
+    }
+
+    /// Escape sequences from ECMA-48 (the standard terminals follow): OSC 0
+    /// sets the window title, CSI 2 J clears the screen, CSI H homes the
+    /// cursor; a carriage return overwrites the line; U+009B is the C1 form
+    /// of CSI. None reaches the terminal as a control.
+    #[test]
+    fn terminal_controls_from_records_are_shown_not_obeyed() {
+        let hostile =
+            "Title\u{1b}]0;owned\u{7}\u{1b}[2J\u{1b}[H fine\rover \u{9b}31m\u{7f}é\tend\n";
+        let shown = printable(&[hostile.as_bytes()]);
+        assert!(
+            !shown
+                .chars()
+                .any(|c| c.is_control() && c != '\n' && c != '\t'),
+            "{shown:?}"
+        );
+        assert_eq!(
+            shown,
+            "Title\u{241b}]0;owned\u{2407}\u{241b}[2J\u{241b}[H fine\u{240d}over \u{FFFD}31m\u{2421}é\tend\n"
+        );
+        // Split anywhere, even inside a two-byte character or a C1 control:
+        // the same output.
+        let bytes = hostile.as_bytes();
+        for cut in 0..bytes.len() {
+            assert_eq!(
+                printable(&[&bytes[..cut], &bytes[cut..]]),
+                shown,
+                "cut at {cut}"
+            );
+        }
+        assert_eq!(super::printable(hostile), shown, "the string form agrees");
+        // Ordinary text, accented letters included, passes unchanged.
+        let plain = "Le ministère a payé 1 400 000 $ — « reçu » · p. 3\n";
+        assert_eq!(printable(&[plain.as_bytes()]), plain);
+    }
 
     #[test]
     fn normalisation_table() {

@@ -737,3 +737,63 @@ fn two_adds_started_together_issue_22() {
         2 - ok
     ));
 }
+
+/// Issue 26, item 6: escape sequences inside a record (ECMA-48 OSC 0 sets
+/// the window title, CSI 2 J clears the screen) are shown as symbols by
+/// `answer`, `find`, `history` and `records`, never sent to the terminal;
+/// the JSON keeps the record's characters, escaped as JSON escapes them.
+#[test]
+fn terminal_controls_in_records_are_shown_not_sent_issue_26() {
+    let src = tempfile::tempdir().unwrap();
+    let idx = tempfile::tempdir().unwrap();
+    write(
+        src.path(),
+        "minutes.txt",
+        "The board approved the dredging amendment of $1.4 million on 3 June 2020.\u{1b}]0;owned\u{7}\u{1b}[2J\n\
+         The dredging contract went to Sallowcrest Marine.\r\u{1b}[1A\u{9b}2K\n",
+    );
+    assert!(
+        onrecord(
+            &[
+                "add",
+                src.path().to_str().unwrap(),
+                "--title",
+                "Minutes\u{1b}[31m"
+            ],
+            idx.path()
+        )
+        .status
+        .success()
+    );
+    let question = "How much was the dredging amendment?\u{1b}[2J";
+    for args in [
+        vec!["answer", question],
+        vec!["find", "dredging amendment"],
+        vec!["find", "dredging amendment", "--why"],
+        vec!["history"],
+        vec!["records"],
+    ] {
+        let out = onrecord(&args, idx.path());
+        assert!(
+            out.status.success(),
+            "{args:?}: {}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        let text = String::from_utf8(out.stdout).unwrap();
+        let controls: Vec<char> = text
+            .chars()
+            .filter(|c| c.is_control() && *c != '\n' && *c != '\t')
+            .collect();
+        assert!(controls.is_empty(), "{args:?} sent {controls:?}:\n{text}");
+        assert!(
+            text.contains('\u{241b}'),
+            "{args:?} shows the escape:\n{text}"
+        );
+    }
+    let out = onrecord(&["answer", question, "--json"], idx.path());
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert!(
+        v["question"].as_str().unwrap().contains('\u{1b}'),
+        "JSON keeps it"
+    );
+}
