@@ -31,6 +31,17 @@ fn writer<W: Write>(out: W) -> csv::Writer<W> {
         .from_writer(out)
 }
 
+/// A cell a spreadsheet would run as a formula (it begins with `=`, `+`,
+/// `-` or `@`, or a tab or carriage return that hides one) gets a leading
+/// apostrophe, so it is shown as text: the OWASP guidance on CSV injection
+/// (the "formula injection" prevention). Records are untrusted input.
+pub fn neutral_cell(s: &str) -> std::borrow::Cow<'_, str> {
+    match s.chars().next() {
+        Some('=' | '+' | '-' | '@' | '\t' | '\r') => format!("'{s}").into(),
+        _ => s.into(),
+    }
+}
+
 fn pages(page: u32, end: Option<u32>) -> String {
     match end {
         Some(e) if e != page => format!("{page}-{e}"),
@@ -70,7 +81,8 @@ fn row<W: Write>(
         lead.iter()
             .copied()
             .chain(cite.iter().map(String::as_str))
-            .chain(ocr.iter().map(String::as_str)),
+            .chain(ocr.iter().map(String::as_str))
+            .map(|cell| neutral_cell(cell).into_owned()),
     )
 }
 
@@ -170,4 +182,34 @@ pub fn write_replay<W: Write>(r: &ReplayReport, out: W) -> csv::Result<()> {
     }
     w.flush()?;
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::neutral_cell;
+
+    /// The OWASP CSV-injection guidance: cells starting with = + - @ (and
+    /// tab or carriage return) are prefixed with a single quote; others
+    /// are left as they are.
+    #[test]
+    fn formula_cells_are_neutralised() {
+        for (cell, want) in [
+            (
+                "=HYPERLINK(\"http://x.example\",\"click\")",
+                "'=HYPERLINK(\"http://x.example\",\"click\")",
+            ),
+            ("+1+cmd|' /C calc'!A0", "'+1+cmd|' /C calc'!A0"),
+            ("-2+3", "'-2+3"),
+            ("@SUM(A1:A2)", "'@SUM(A1:A2)"),
+            ("\t=1+1", "'\t=1+1"),
+            (
+                "The board approved $1.4 million.",
+                "The board approved $1.4 million.",
+            ),
+            ("7-8", "7-8"),
+            ("", ""),
+        ] {
+            assert_eq!(neutral_cell(cell), want, "{cell:?}");
+        }
+    }
 }

