@@ -2512,7 +2512,7 @@ fn cmd_ingest(
         let skipped = if skipped.is_empty() {
             String::new()
         } else {
-            format!(" (unsupported types: {})", skipped.join(", "))
+            format!(" (unsupported or not files: {})", skipped.join(", "))
         };
         writeln!(
             out,

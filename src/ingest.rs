@@ -110,8 +110,34 @@ pub struct MemDoc {
     pub pages: Vec<String>,
 }
 
+/// What a directory entry is when it is neither a regular file nor a
+/// folder, in words for a diagnostic ("a symbolic link", "a named pipe").
+pub fn special_kind(ft: &std::fs::FileType) -> Option<&'static str> {
+    if ft.is_symlink() {
+        return Some("a symbolic link");
+    }
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::FileTypeExt;
+        if ft.is_fifo() {
+            return Some("a named pipe");
+        }
+        if ft.is_socket() {
+            return Some("a socket");
+        }
+        if ft.is_block_device() || ft.is_char_device() {
+            return Some("a device");
+        }
+    }
+    (!ft.is_file() && !ft.is_dir()).then_some("not a regular file")
+}
+
 /// Collect the files under `paths` (folders recursively, hidden entries
-/// skipped, sorted). Paths that do not exist become diagnostics.
+/// skipped, sorted). Paths that do not exist become errors. Entries inside
+/// a folder that are not regular files (symbolic links, which are not
+/// followed so that a release cannot pull in files from elsewhere on the
+/// machine; named pipes, sockets, devices) become warnings naming them;
+/// ingest counts them as skipped.
 pub fn collect_files(paths: &[PathBuf], diags: &mut Vec<Diagnostic>) -> Vec<PathBuf> {
     let mut out = Vec::new();
     for p in paths {
@@ -127,7 +153,23 @@ pub fn collect_files(paths: &[PathBuf], diags: &mut Vec<Diagnostic>) -> Vec<Path
             for entry in walker {
                 match entry {
                     Ok(e) if e.file_type().is_file() => out.push(e.into_path()),
-                    Ok(_) => {}
+                    Ok(e) if e.file_type().is_dir() => {}
+                    Ok(e) => {
+                        let what = special_kind(&e.file_type()).unwrap_or("not a regular file");
+                        let message = match std::fs::read_link(e.path()) {
+                            Ok(to) if e.file_type().is_symlink() => format!(
+                                "skipped: {what} (to {}); links inside a folder are not followed, \
+                                 so add the file it points to by name if it belongs to the release",
+                                to.display()
+                            ),
+                            _ => format!("skipped: {what}, not a file that can be read"),
+                        };
+                        diags.push(Diagnostic {
+                            path: e.into_path(),
+                            severity: Severity::Warning,
+                            message,
+                        });
+                    }
                     Err(e) => diags.push(Diagnostic {
                         path: e.path().map(Path::to_path_buf).unwrap_or_else(|| p.clone()),
                         severity: Severity::Error,
@@ -136,10 +178,17 @@ pub fn collect_files(paths: &[PathBuf], diags: &mut Vec<Diagnostic>) -> Vec<Path
                 }
             }
         } else {
+            let message = match std::fs::symlink_metadata(p) {
+                Ok(m) => format!(
+                    "{}, not a file or folder that can be read",
+                    special_kind(&m.file_type()).unwrap_or("not a regular file")
+                ),
+                Err(_) => "no such file or folder".into(),
+            };
             diags.push(Diagnostic {
                 path: p.clone(),
                 severity: Severity::Error,
-                message: "no such file or folder".into(),
+                message,
             });
         }
     }
@@ -245,7 +294,18 @@ pub fn ingest_paths(
     let bm25 = Bm25Index::open_synced(index_dir, &store)?;
     let mut diags = Vec::new();
     let files = collect_files(paths, &mut diags);
-    let failed_paths = diags.len();
+    let failed_paths = diags
+        .iter()
+        .filter(|d| d.severity == Severity::Error)
+        .count();
+    let mut skipped_entries = std::collections::BTreeMap::<String, usize>::new();
+    for d in diags.iter().filter(|d| d.severity == Severity::Warning) {
+        let what = std::fs::symlink_metadata(&d.path)
+            .ok()
+            .and_then(|m| special_kind(&m.file_type()))
+            .unwrap_or("not a regular file");
+        *skipped_entries.entry(format!("({what})")).or_default() += 1;
+    }
     let bars = indicatif::MultiProgress::new();
     let bar = bars.add(progress_bar(cfg.progress, files.len() as u64, "files"));
     let mut run = Run {
@@ -253,6 +313,8 @@ pub fn ingest_paths(
         cfg,
         report: Report {
             failed: failed_paths,
+            skipped: skipped_entries.values().sum(),
+            skipped_types: skipped_entries,
             ..Default::default()
         },
         diags,

@@ -144,9 +144,20 @@ impl AppState {
             tracing::warn!("{n}");
         }
         let port = bind.port();
-        let hosts = ["127.0.0.1", "localhost", "[::1]"]
+        // The loopback names, and the address actually bound when it is
+        // another loopback one (127.0.0.23, say): the address printed must
+        // answer.
+        let bound = match bind.ip() {
+            std::net::IpAddr::V4(a) => a.to_string(),
+            std::net::IpAddr::V6(a) => format!("[{a}]"),
+        };
+        let mut names = vec!["127.0.0.1".to_string(), "localhost".into(), "[::1]".into()];
+        if bind.ip().is_loopback() && !names.contains(&bound) {
+            names.push(bound);
+        }
+        let hosts = names
             .iter()
-            .flat_map(|h| [format!("{h}:{port}"), (*h).to_string()])
+            .flat_map(|h| [format!("{h}:{port}"), h.clone()])
             .collect();
         Ok(AppState {
             inner: Arc::new(Shared {

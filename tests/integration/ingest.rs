@@ -352,3 +352,72 @@ fn every_stored_chunk_is_exactly_its_page_slice() {
         "the long document has a chunk across a page break"
     );
 }
+
+/// Issue 26, item 9: entries of a folder that are not regular files are
+/// counted and named, not passed over in silence. A symbolic link is not
+/// followed (a release must not pull in a file from elsewhere on the
+/// machine); a named pipe is not opened (it would block the run).
+#[cfg(unix)]
+#[test]
+fn links_and_pipes_in_a_folder_are_counted_and_named_issue_26() {
+    let src = tempfile::tempdir().unwrap();
+    let elsewhere = tempfile::tempdir().unwrap();
+    let idx = tempfile::tempdir().unwrap();
+    write(
+        src.path(),
+        "memo.txt",
+        "The ramp was closed on 14 March 2022.",
+    );
+    let secret = write(
+        elsewhere.path(),
+        "secret.txt",
+        "Private notes, not part of the release.",
+    );
+    std::os::unix::fs::symlink(&secret, src.path().join("linked.txt")).unwrap();
+    let fifo = src.path().join("pipe.txt");
+    let c = std::ffi::CString::new(fifo.to_str().unwrap()).unwrap();
+    assert_eq!(unsafe { libc::mkfifo(c.as_ptr(), 0o600) }, 0);
+
+    let (report, diags) = ingest(idx.path(), &[src.path().to_path_buf()]);
+    assert_eq!(report.ingested, 1, "{diags:?}");
+    assert_eq!(report.failed, 0, "{diags:?}");
+    assert_eq!(report.skipped, 2, "{report:?}");
+    assert_eq!(
+        report.skipped_types.get("(a symbolic link)"),
+        Some(&1),
+        "{report:?}"
+    );
+    assert_eq!(
+        report.skipped_types.get("(a named pipe)"),
+        Some(&1),
+        "{report:?}"
+    );
+    let named = |name: &str| {
+        diags
+            .iter()
+            .find(|d| d.path.ends_with(name))
+            .unwrap_or_else(|| panic!("{name} not named: {diags:?}"))
+    };
+    let link = named("linked.txt");
+    assert_eq!(link.severity, Severity::Warning);
+    assert!(
+        link.message.contains("symbolic link") && link.message.contains("secret.txt"),
+        "{}",
+        link.message
+    );
+    let pipe = named("pipe.txt");
+    assert!(pipe.message.contains("named pipe"), "{}", pipe.message);
+    let store = Store::open(idx.path()).unwrap();
+    let docs: Vec<String> = store
+        .documents()
+        .unwrap()
+        .into_iter()
+        .map(|d| d.doc_id.0)
+        .collect();
+    assert_eq!(docs, ["memo"], "nothing from outside the release");
+
+    // Named on the command line, a pipe is an error that says what it is.
+    let (report, diags) = ingest(idx.path(), std::slice::from_ref(&fifo));
+    assert_eq!(report.failed, 1);
+    assert!(diags[0].message.contains("a named pipe"), "{diags:?}");
+}

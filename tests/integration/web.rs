@@ -629,6 +629,28 @@ async fn without_a_token_only_loopback_names_are_answered() {
         assert_eq!(r.status, StatusCode::FORBIDDEN, "{host}");
         assert!(r.error().contains("127.0.0.1"));
     }
+    // Issue 26, item 10: bound to another loopback address, the address
+    // the server prints answers; other loopback addresses still do not.
+    let state = AppState::new(
+        web_index().to_path_buf(),
+        None,
+        None,
+        Limits::default(),
+        "127.0.0.23:8417".parse().unwrap(),
+    )
+    .unwrap();
+    let app = web::app(state);
+    for (host, status) in [
+        ("127.0.0.23:8417", StatusCode::OK),
+        ("127.0.0.1:8417", StatusCode::OK),
+        ("127.0.0.24:8417", StatusCode::FORBIDDEN),
+    ] {
+        let req = Request::get("/api/info")
+            .header(header::HOST, host)
+            .body(Body::empty())
+            .unwrap();
+        assert_eq!(send(&app, req).await.status, status, "{host}");
+    }
 }
 
 #[test]
