@@ -1,5 +1,9 @@
 //! HTML: the visible text only. Scripts, styles, templates, the head and
-//! elements marked `hidden` are skipped; block elements become line breaks.
+//! elements a browser would not show are skipped: marked `hidden`, or
+//! styled (inline, or by a class rule in the page's own style sheet) with
+//! `display: none`, `visibility: hidden`, a zero font size, zero opacity,
+//! or text in the colour of its own background (white on the default white
+//! page, say). Block elements become line breaks.
 
 use super::{ExtractError, Extracted, decode_text};
 use crate::types::DocMeta;
@@ -109,8 +113,14 @@ pub(super) fn extract(bytes: &[u8]) -> Result<Extracted, ExtractError> {
         .next()
         .map(|t| crate::text::fold_ws(&t.text().collect::<String>()))
         .filter(|t| !t.is_empty());
+    let style_sheet: String = doc
+        .select(&scraper::Selector::parse("style").expect("static selector"))
+        .map(|s| s.text().collect::<String>())
+        .collect::<Vec<_>>()
+        .join("\n");
+    let hidden_classes = hidden_classes(&style_sheet);
     let mut out = String::new();
-    walk(doc.root_element(), &mut out);
+    walk(doc.root_element(), &hidden_classes, &mut out);
     let text = tidy(&out);
     Ok(Extracted {
         pages: vec![text],
@@ -134,7 +144,7 @@ enum Step<'a> {
 
 /// The visible text under `root`, in document order. The walk keeps its own
 /// stack, so tags nested a million deep cannot overflow the thread's.
-fn walk(root: ElementRef<'_>, out: &mut String) {
+fn walk(root: ElementRef<'_>, hidden_classes: &[String], out: &mut String) {
     let mut stack = vec![Step::Open(root, false)];
     while let Some(step) = stack.pop() {
         match step {
@@ -146,7 +156,14 @@ fn walk(root: ElementRef<'_>, out: &mut String) {
                 {
                     out.push('\t');
                 }
-                if SKIP.contains(&name) || el.value().attr("hidden").is_some() {
+                if SKIP.contains(&name)
+                    || el.value().attr("hidden").is_some()
+                    || el.value().attr("style").is_some_and(hides)
+                    || el
+                        .value()
+                        .classes()
+                        .any(|c| hidden_classes.iter().any(|h| h == c))
+                {
                     continue;
                 }
                 let pre = pre || name == "pre";
@@ -189,6 +206,105 @@ fn walk(root: ElementRef<'_>, out: &mut String) {
             }
         }
     }
+}
+
+/// Whether CSS declarations (`prop: value; ...`) hide an element's text.
+fn hides(declarations: &str) -> bool {
+    let mut colour = None;
+    let mut background = None;
+    for d in declarations.split(';') {
+        let Some((prop, value)) = d.split_once(':') else {
+            continue;
+        };
+        let prop = prop.trim().to_ascii_lowercase();
+        let value: String = value
+            .to_ascii_lowercase()
+            .replace("!important", "")
+            .split_whitespace()
+            .collect::<Vec<_>>()
+            .join(" ");
+        let zero = |v: &str| {
+            v.trim_end_matches(|c: char| c.is_ascii_alphabetic() || c == '%')
+                .parse::<f64>()
+                .is_ok_and(|n| n == 0.0)
+        };
+        match prop.as_str() {
+            "display" if value == "none" => return true,
+            "visibility" if value == "hidden" || value == "collapse" => return true,
+            "font-size" | "opacity" if zero(&value) => return true,
+            "color" => colour = Some(canonical_colour(&value)),
+            "background" | "background-color" => background = Some(canonical_colour(&value)),
+            _ => {}
+        }
+    }
+    match (colour, background) {
+        (Some(c), Some(b)) => c == b,
+        // No background of its own: on the default white page.
+        (Some(c), None) => c == "#ffffff",
+        _ => false,
+    }
+}
+
+/// A colour in one spelling, for comparing: white, #fff, #ffffff and
+/// rgb(255, 255, 255) are all `#ffffff`; anything else as written.
+fn canonical_colour(v: &str) -> String {
+    let v = v.trim();
+    match v {
+        "white" => return "#ffffff".into(),
+        "black" => return "#000000".into(),
+        _ => {}
+    }
+    if let Some(hex) = v.strip_prefix('#') {
+        if hex.len() == 3 && hex.chars().all(|c| c.is_ascii_hexdigit()) {
+            return hex
+                .chars()
+                .flat_map(|c| [c, c])
+                .fold(String::from("#"), |mut s, c| {
+                    s.push(c);
+                    s
+                });
+        }
+        return format!("#{hex}");
+    }
+    if let Some(inner) = v.strip_prefix("rgb(").and_then(|r| r.strip_suffix(')')) {
+        let parts: Vec<u8> = inner
+            .split(',')
+            .filter_map(|p| p.trim().parse().ok())
+            .collect();
+        if parts.len() == 3 {
+            return format!("#{:02x}{:02x}{:02x}", parts[0], parts[1], parts[2]);
+        }
+    }
+    v.to_string()
+}
+
+/// Class names that the page's own style sheet hides with a rule whose
+/// selector is that one class (`.note-ai { display: none }`).
+fn hidden_classes(css: &str) -> Vec<String> {
+    let mut out = Vec::new();
+    let mut rest = css;
+    while let Some(open) = rest.find('{') {
+        let Some(close) = rest[open..].find('}') else {
+            break;
+        };
+        let selectors = &rest[..open];
+        let body = &rest[open + 1..open + close];
+        if hides(body) {
+            for sel in selectors.split(',') {
+                let sel = sel.trim();
+                if let Some(class) = sel.strip_prefix('.')
+                    && !class.is_empty()
+                    && class
+                        .chars()
+                        .all(|c| c.is_alphanumeric() || c == '-' || c == '_')
+                {
+                    out.push(class.to_string());
+                }
+            }
+        }
+        rest = &rest[open + close + 1..];
+    }
+    out
 }
 
 /// Trim every line and keep at most one blank line between blocks.
@@ -235,6 +351,36 @@ mod tests {
         for absent in ["do not index", "color:red", "hidden text"] {
             assert!(!t.contains(absent), "{absent} leaked into {t}");
         }
+    }
+
+    /// Issue 26, item 3: text a browser does not show is not indexed, so
+    /// it can never be quoted. CSS 2.1 (display, visibility) and CSS Color
+    /// Level 3 (white, #fff, rgb(255, 255, 255) are the same colour).
+    #[test]
+    fn text_a_browser_hides_is_not_read() {
+        let html = br#"<html><head><style>
+            .ai-note, .other { display : none }
+            p.keep { color: red }
+            </style></head><body>
+            <p>Visible: the ramp closed on 14 March 2022.</p>
+            <p style="display:none">Hidden one: the minister resigned.</p>
+            <p style="visibility: hidden">Hidden two: the minister resigned.</p>
+            <p style="font-size:0px">Hidden three: the minister resigned.</p>
+            <p style="opacity: 0">Hidden four: the minister resigned.</p>
+            <p style="color:#fff">Hidden five: the minister resigned.</p>
+            <p style="color: rgb(255, 255, 255); background-color: white">Hidden six.</p>
+            <span style="color:#123456;background:#123456">Hidden seven.</span>
+            <div class="ai-note">Hidden eight: the minister resigned.</div>
+            <p class="keep" style="color: #333; background: #fff">Shown: dark on white.</p>
+            <p style="font-size: 0.9em">Shown: small print.</p>
+            </body></html>"#;
+        let t = extract(html).unwrap().pages.remove(0);
+        assert!(t.contains("Visible: the ramp closed"), "{t}");
+        assert!(
+            t.contains("Shown: dark on white.") && t.contains("Shown: small print."),
+            "{t}"
+        );
+        assert!(!t.contains("Hidden"), "hidden text read: {t}");
     }
 
     /// Tags nested deeper than the walk could once recurse: read without
