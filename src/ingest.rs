@@ -774,8 +774,8 @@ impl Run<'_> {
                 &path,
                 Severity::Warning,
                 format!(
-                    "{} need OCR but could not be read (see the first warning for how to install what is missing); the file will be read again on the next ingest",
-                    page_list(&unread)
+                    "{} but could not be read (see the first warning for how to install what is missing); the file will be read again on the next ingest",
+                    need_ocr(&unread)
                 ),
             );
             // Never "unchanged" while pages wait for OCR.
@@ -876,6 +876,12 @@ impl Run<'_> {
 }
 
 /// "page 3" or "pages 1-4, 7".
+/// "page 1 needs OCR", "pages 1-3 need OCR".
+fn need_ocr(pages: &[u32]) -> String {
+    let verb = if pages.len() == 1 { "needs" } else { "need" };
+    format!("{} {verb} OCR", page_list(pages))
+}
+
 fn page_list(pages: &[u32]) -> String {
     let mut parts: Vec<String> = Vec::new();
     let mut i = 0;
@@ -916,5 +922,8 @@ mod tests {
     fn page_lists() {
         assert_eq!(page_list(&[3]), "page 3");
         assert_eq!(page_list(&[1, 2, 3, 4, 7, 9, 10]), "pages 1-4, 7, 9-10");
+        // Issue 26, item 10: the verb agrees ("page 1 need OCR" before).
+        assert_eq!(need_ocr(&[1]), "page 1 needs OCR");
+        assert_eq!(need_ocr(&[1, 2]), "pages 1-2 need OCR");
     }
 }

@@ -508,7 +508,7 @@ pub fn extract_layer(
         return Err(PdfError::NoPages);
     }
     let drawings = quietly(|| page_drawings(&doc))
-        .map_err(|msg| PdfError::Corrupt(format!("the PDF parser crashed: {msg}")))?;
+        .map_err(|msg| PdfError::Corrupt(stopped("PDF parser", &msg)))?;
     let raw = match route {
         PdfRoute::Pdftotext => {
             drop(doc);
@@ -657,7 +657,7 @@ fn load_checked(bytes: &[u8]) -> Result<Document, PdfError> {
         return Err(PdfError::Corrupt("the file is empty".into()));
     }
     let loaded = quietly(|| Document::load_mem(bytes))
-        .map_err(|msg| PdfError::Corrupt(format!("the PDF parser crashed: {msg}")))?;
+        .map_err(|msg| PdfError::Corrupt(stopped("PDF parser", &msg)))?;
     let mut doc = loaded.map_err(|e| PdfError::Corrupt(short(&e.to_string())))?;
     // lopdf 0.42 decrypts on load when the empty user password authenticates and then removes
     // /Encrypt from the trailer; /Encrypt still being there means that password failed.
@@ -856,9 +856,7 @@ fn pure_rust_pages(mut doc: Document) -> Result<Vec<String>, PdfError> {
     });
     match result {
         Ok(r) => r,
-        Err(msg) => Err(PdfError::Corrupt(short(&format!(
-            "the text extractor crashed: {msg}"
-        )))),
+        Err(msg) => Err(PdfError::Corrupt(stopped("text extractor", &msg))),
     }
 }
 
@@ -900,6 +898,27 @@ fn normalize_page(raw: &str) -> String {
 }
 
 /// Keeps reasons short enough for a one-line error.
+/// A readable diagnostic for a PDF library that stopped on an internal
+/// error: its message is often a bare font or object name with broken
+/// bytes in it ("F1\u{FFFD}9"), so it is cleaned and set in quotes after a
+/// sentence that says what happened.
+fn stopped(what: &str, msg: &str) -> String {
+    let clean: String = msg
+        .chars()
+        .map(|c| {
+            if c == '\u{FFFD}' || c.is_control() {
+                '?'
+            } else {
+                c
+            }
+        })
+        .collect();
+    short(&format!(
+        "the built-in {what} stopped on an internal error while reading this file (\u{201C}{}\u{201D}); the file may be damaged or use a font it cannot read",
+        clean.trim()
+    ))
+}
+
 fn short(s: &str) -> String {
     const MAX: usize = 160;
     let s = s.trim();
@@ -1195,6 +1214,22 @@ mod tests {
         assert_eq!(out, b"done\n");
     }
 
+    /// Issue 26, item 10: a library's panic message with broken bytes in
+    /// it ("F1\u{FFFD}9") is cleaned and explained, not printed raw.
+    #[test]
+    fn an_internal_error_reads_as_a_sentence() {
+        let m = stopped("text extractor", "F1\u{FFFD}9\u{7}");
+        assert!(
+            !m.contains('\u{FFFD}') && !m.chars().any(char::is_control),
+            "{m}"
+        );
+        assert!(
+            m.starts_with("the built-in text extractor stopped on an internal error")
+                && m.contains("\u{201C}F1?9?\u{201D}"),
+            "{m}"
+        );
+    }
+
     /// A page tree without /MediaBox makes pdf-extract panic (`expect("MediaBox")`): the panic
     /// is caught, silenced and reported as Corrupt. (poppler assumes Letter and reads it.)
     #[test]
@@ -1204,7 +1239,10 @@ mod tests {
         write_text_pdf(&path, "t", &sample_pages()).unwrap();
         remove_media_box(&path);
         match extract_pages(&path, PdfRoute::PureRust) {
-            Err(PdfError::Corrupt(reason)) => assert!(reason.contains("crashed"), "{reason}"),
+            Err(PdfError::Corrupt(reason)) => assert!(
+                reason.contains("stopped on an internal error") && reason.contains("MediaBox"),
+                "{reason}"
+            ),
             other => panic!("expected Corrupt, got {other:?}"),
         }
         if routes().contains(&PdfRoute::Pdftotext) {
