@@ -588,6 +588,11 @@ enum Command {
         /// Show at most this many.
         #[arg(short = 'n', long, default_value_t = 50)]
         limit: usize,
+        /// First delete all but the newest N answers, and the page texts
+        /// that only the deleted ones cite. The log is otherwise never
+        /// shortened: every answer stays replayable.
+        #[arg(long, value_name = "N")]
+        keep: Option<usize>,
         #[arg(long)]
         json: bool,
     },
@@ -1192,7 +1197,12 @@ pub fn run() -> Result<ExitCode> {
             }
             Ok(ExitCode::SUCCESS)
         }
-        Command::History { index, limit, json } => cmd_history(&index.index, limit, json),
+        Command::History {
+            index,
+            limit,
+            keep,
+            json,
+        } => cmd_history(&index.index, limit, keep, json),
         Command::Replay {
             file,
             id,
@@ -2425,12 +2435,27 @@ fn cmd_replay(args: ReplayArgs, format: Export) -> Result<ExitCode> {
     Ok(ExitCode::from(report.exit_code))
 }
 
-fn cmd_history(index: &std::path::Path, limit: usize, json: bool) -> Result<ExitCode> {
+fn cmd_history(
+    index: &std::path::Path,
+    limit: usize,
+    keep: Option<usize>,
+    json: bool,
+) -> Result<ExitCode> {
     let store = onrecord::store::Store::open(index)?;
+    let pruned = keep.map(|k| store.prune_answers(k)).transpose()?;
     let log = store.answer_log(limit)?;
     if json {
-        print_json(&serde_json::json!({"index": index, "answers": log}))?;
+        let mut v = serde_json::json!({"index": index, "answers": log});
+        if let Some((answers, pages)) = pruned {
+            v["pruned"] = serde_json::json!({"answers": answers, "page_texts": pages});
+        }
+        print_json(&v)?;
         return Ok(ExitCode::SUCCESS);
+    }
+    if let (Some((answers, pages)), Some(k)) = (pruned, keep) {
+        eprintln!(
+            "Removed {answers} logged answer(s) and {pages} kept page text(s) that only they cited; at most the newest {k} remain."
+        );
     }
     if log.is_empty() {
         println!(

@@ -1121,6 +1121,91 @@ impl Store {
         Ok(out)
     }
 
+    /// Delete all but the newest `keep` logged answers, and the kept page
+    /// texts that no remaining answer cites. Returns (answers removed, page
+    /// texts removed). The only call that shortens the log: nothing does it
+    /// unasked.
+    pub fn prune_answers(&self, keep: usize) -> Result<(usize, usize)> {
+        let e = |e| Error::store(&self.path, e);
+        let tx = self.conn.unchecked_transaction().map_err(e)?;
+        let removed = tx
+            .execute(
+                "DELETE FROM answers WHERE id NOT IN
+                 (SELECT id FROM answers ORDER BY id DESC LIMIT ?1)",
+                params![keep.min(i64::MAX as usize) as i64],
+            )
+            .map_err(e)?;
+        // What the remaining answers cite: the hash of each quote's first
+        // page, and (document, later pages) of quotes that run over a page
+        // break, whose hashes the record does not carry.
+        let mut hashes: std::collections::HashSet<String> = std::collections::HashSet::new();
+        let mut cited: std::collections::HashMap<String, Vec<(u64, u64)>> =
+            std::collections::HashMap::new();
+        {
+            let mut stmt = tx.prepare("SELECT record FROM answers").map_err(e)?;
+            let rows = stmt.query_map([], |r| r.get::<_, String>(0)).map_err(e)?;
+            for row in rows {
+                let record: serde_json::Value =
+                    serde_json::from_str(&row.map_err(e)?).unwrap_or_default();
+                let drafts = record["draft"]["verdicts"]
+                    .as_array()
+                    .cloned()
+                    .unwrap_or_default();
+                let sentences = record["sentences"].as_array().cloned().unwrap_or_default();
+                for s in sentences.iter().chain(drafts.iter()) {
+                    for c in s["citations"].as_array().into_iter().flatten() {
+                        let (Some(doc), Some(page)) = (c["doc_id"].as_str(), c["page"].as_u64())
+                        else {
+                            continue;
+                        };
+                        if let Some(h) = c["page_hash"].as_str() {
+                            hashes.insert(h.to_string());
+                        }
+                        let last = c["end_page"].as_u64().unwrap_or(page);
+                        if last > page {
+                            cited
+                                .entry(doc.to_string())
+                                .or_default()
+                                .push((page + 1, last));
+                        }
+                    }
+                }
+            }
+        }
+        let mut orphans = Vec::new();
+        {
+            let mut stmt = tx
+                .prepare("SELECT hash, doc_id, page FROM cited_pages")
+                .map_err(e)?;
+            let rows = stmt
+                .query_map([], |r| {
+                    Ok((
+                        r.get::<_, String>(0)?,
+                        r.get::<_, String>(1)?,
+                        r.get::<_, i64>(2)?,
+                    ))
+                })
+                .map_err(e)?;
+            for row in rows {
+                let (hash, doc, page) = row.map_err(e)?;
+                let page = page as u64;
+                let used = hashes.contains(&hash)
+                    || cited
+                        .get(&doc)
+                        .is_some_and(|r| r.iter().any(|&(a, b)| a <= page && page <= b));
+                if !used {
+                    orphans.push(hash);
+                }
+            }
+        }
+        for h in &orphans {
+            tx.execute("DELETE FROM cited_pages WHERE hash = ?1", params![h])
+                .map_err(e)?;
+        }
+        tx.commit().map_err(e)?;
+        Ok((removed, orphans.len()))
+    }
+
     /// The answer record (JSON) logged as entry `id`.
     pub fn logged_answer(&self, id: u64) -> Result<Option<String>> {
         self.conn

@@ -851,3 +851,69 @@ fn csv_exports_carry_no_live_formula_issue_26() {
         }
     }
 }
+
+/// Issue 26, item 10: the answer log can be shortened on request. `history
+/// --keep N` deletes all but the newest N answers and the page texts only
+/// they cite; what remains still replays.
+#[test]
+fn the_answer_log_is_pruned_on_request_issue_26() {
+    let src = tempfile::tempdir().unwrap();
+    let idx = tempfile::tempdir().unwrap();
+    let file = write(
+        src.path(),
+        "minutes.txt",
+        "The board approved the dredging amendment of $1.4 million on 3 June 2020.\n",
+    );
+    let add = || onrecord(&["add", src.path().to_str().unwrap()], idx.path());
+    let ask = || {
+        let out = onrecord(
+            &["answer", "How much was the dredging amendment?"],
+            idx.path(),
+        );
+        assert!(out.status.success());
+    };
+    assert!(add().status.success());
+    ask();
+    ask();
+    // A new version of the record: the old page's text is kept for the
+    // two answers that cite it.
+    std::fs::write(
+        &file,
+        "The board approved the dredging amendment of $1.4 million on 3 June 2020.\nThe work began in July.\n",
+    )
+    .unwrap();
+    assert!(add().status.success());
+    ask();
+    let history = |args: &[&str]| {
+        let mut all = vec!["history", "--json"];
+        all.extend_from_slice(args);
+        let out = onrecord(&all, idx.path());
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        serde_json::from_slice::<serde_json::Value>(&out.stdout).unwrap()
+    };
+    let v = history(&[]);
+    assert_eq!(v["answers"].as_array().unwrap().len(), 3);
+    assert!(v.get("pruned").is_none(), "listing never prunes");
+    let v = history(&["--keep", "1"]);
+    assert_eq!(v["pruned"]["answers"], 2, "{v}");
+    assert_eq!(v["pruned"]["page_texts"], 1, "the old version's page: {v}");
+    let left = v["answers"].as_array().unwrap();
+    assert_eq!(left.len(), 1);
+    let id = left[0]["id"].as_u64().unwrap().to_string();
+    let out = onrecord(&["replay", "--id", &id], idx.path());
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&out.stdout)
+    );
+    let v = history(&["--keep", "1"]);
+    assert_eq!(
+        v["pruned"],
+        serde_json::json!({"answers": 0, "page_texts": 0})
+    );
+}
