@@ -18,6 +18,7 @@
 
 mod api;
 mod assets;
+pub mod conn;
 
 use crate::embed::Embedder;
 use crate::retrieve::Index;
@@ -61,6 +62,14 @@ pub struct Limits {
     pub workers: usize,
     /// Requests that may wait for a worker; more are refused with 429.
     pub max_waiting: usize,
+    /// Connections open at once; more wait to be accepted (see `conn`).
+    pub max_connections: usize,
+    /// Time a new connection has to send its first request's headers.
+    #[serde(skip)]
+    pub header_timeout: std::time::Duration,
+    /// Time a connection may sit with nothing read or written.
+    #[serde(skip)]
+    pub idle_timeout: std::time::Duration,
 }
 
 impl Default for Limits {
@@ -72,6 +81,9 @@ impl Default for Limits {
             max_passages: 50,
             workers: std::thread::available_parallelism().map_or(2, |n| n.get()),
             max_waiting: 256,
+            max_connections: 512,
+            header_timeout: std::time::Duration::from_secs(10),
+            idle_timeout: std::time::Duration::from_secs(120),
         }
     }
 }
@@ -292,7 +304,14 @@ async fn guard(State(state): State<AppState>, req: Request, next: Next) -> Respo
             }
             r
         }
-        Admit::No(e) => e.into_response(),
+        Admit::No(e) => {
+            // Refused before any work: the connection is not kept open for
+            // another try.
+            let mut r = e.into_response();
+            r.headers_mut()
+                .insert(header::CONNECTION, HeaderValue::from_static("close"));
+            r
+        }
     };
     secure_headers(resp.headers_mut());
     resp
@@ -408,6 +427,7 @@ pub struct Server {
     pub addr: SocketAddr,
     listener: tokio::net::TcpListener,
     router: Router,
+    limits: Limits,
 }
 
 impl Server {
@@ -435,6 +455,7 @@ impl Server {
             addr,
             listener,
             router: app(state),
+            limits: opts.limits,
         })
     }
 
@@ -443,7 +464,7 @@ impl Server {
         self,
         shutdown: impl std::future::Future<Output = ()> + Send + 'static,
     ) -> std::io::Result<()> {
-        axum::serve(self.listener, self.router)
+        axum::serve(conn::Guarded::new(self.listener, &self.limits), self.router)
             .with_graceful_shutdown(shutdown)
             .await
     }

@@ -310,6 +310,14 @@ pub struct TestServer {
 
 impl TestServer {
     pub fn start(index: &Path, token: Option<&str>) -> TestServer {
+        TestServer::start_with(index, token, onrecord::web::Limits::default())
+    }
+
+    pub fn start_with(
+        index: &Path,
+        token: Option<&str>,
+        limits: onrecord::web::Limits,
+    ) -> TestServer {
         let (addr_tx, addr_rx) = std::sync::mpsc::channel();
         let (stop, stopped) = tokio::sync::oneshot::channel::<()>();
         let opts = onrecord::web::ServeOptions {
@@ -317,7 +325,7 @@ impl TestServer {
             bind: "127.0.0.1:0".parse().unwrap(),
             token: token.map(str::to_string),
             embedder: None,
-            limits: onrecord::web::Limits::default(),
+            limits,
         };
         let thread = std::thread::spawn(move || {
             let rt = tokio::runtime::Builder::new_multi_thread()

@@ -994,3 +994,104 @@ async fn a_local_model_streams_its_draft_before_the_verified_answer() {
         "the draft streams before verification"
     );
 }
+
+/// Issue 26, item 4: clients that never authenticate cannot hold the
+/// server. A connection that trickles its headers is closed at the header
+/// deadline; an idle one at the idle deadline; a request announcing an
+/// enormous body without the token is answered 401 at once and closed; and
+/// with more idle connections than the cap, a real request is still
+/// answered.
+#[test]
+fn idle_and_trickling_clients_are_closed_and_cannot_starve_a_request_issue_26() {
+    use std::io::{Read, Write};
+    use std::net::TcpStream;
+    use std::time::{Duration, Instant};
+    let limits = Limits {
+        max_connections: 8,
+        header_timeout: Duration::from_secs(1),
+        idle_timeout: Duration::from_secs(2),
+        ..Limits::default()
+    };
+    let server = crate::support::TestServer::start_with(web_index(), Some(TOKEN), limits);
+    let addr = server.addr;
+    // Closed by the server: a read returns end of file or an error.
+    let closed_within = |s: &mut TcpStream, limit: Duration| -> Option<Duration> {
+        let t = Instant::now();
+        s.set_read_timeout(Some(limit)).unwrap();
+        let mut buf = [0u8; 4096];
+        loop {
+            match s.read(&mut buf) {
+                Ok(0) => return Some(t.elapsed()),
+                Ok(_) => continue,
+                Err(e)
+                    if matches!(
+                        e.kind(),
+                        std::io::ErrorKind::WouldBlock | std::io::ErrorKind::TimedOut
+                    ) =>
+                {
+                    return None;
+                }
+                Err(_) => return Some(t.elapsed()),
+            }
+        }
+    };
+
+    // Headers trickled a byte at a time, never finished.
+    let mut slow = TcpStream::connect(addr).unwrap();
+    let t = Instant::now();
+    let mut cut = None;
+    for b in
+        b"GET /api/info HTTP/1.1\r\nHost: 127.0.0.1\r\nX-Slow: aaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaa"
+    {
+        if slow.write_all(&[*b]).is_err() {
+            cut = Some(t.elapsed());
+            break;
+        }
+        std::thread::sleep(Duration::from_millis(100));
+    }
+    let cut = cut.or_else(|| closed_within(&mut slow, Duration::from_secs(5)).map(|_| t.elapsed()));
+    let cut = cut.expect("a trickling client is cut off");
+    assert!(cut < Duration::from_secs(6), "{cut:?}");
+
+    // Connected, then silent.
+    let mut idle = TcpStream::connect(addr).unwrap();
+    assert!(
+        closed_within(&mut idle, Duration::from_secs(5)).is_some(),
+        "an idle client is closed"
+    );
+
+    // An enormous announced body, no token: 401 at once, then closed.
+    let mut big = TcpStream::connect(addr).unwrap();
+    big.write_all(
+        b"POST /api/question HTTP/1.1\r\nHost: 127.0.0.1\r\nContent-Type: application/json\r\nContent-Length: 99999999999\r\n\r\n{",
+    )
+    .unwrap();
+    big.set_read_timeout(Some(Duration::from_secs(5))).unwrap();
+    let mut head = [0u8; 12];
+    big.read_exact(&mut head).unwrap();
+    assert_eq!(&head, b"HTTP/1.1 401");
+    assert!(
+        closed_within(&mut big, Duration::from_secs(5)).is_some(),
+        "closed after the 401"
+    );
+
+    // Three times the cap in idle connections; a real request still gets in.
+    let hogs: Vec<TcpStream> = (0..24).map(|_| TcpStream::connect(addr).unwrap()).collect();
+    let t = Instant::now();
+    let r = reqwest::blocking::Client::builder()
+        .timeout(Duration::from_secs(20))
+        .build()
+        .unwrap()
+        .get(format!("http://{addr}/api/info"))
+        .bearer_auth(TOKEN)
+        .send()
+        .unwrap();
+    assert_eq!(r.status(), 200);
+    let waited = t.elapsed();
+    drop(hogs);
+    crate::support::figure(&format!(
+        "connections: a trickling client cut off after {:.1} s; with 24 idle connections against a cap of 8, a real request answered in {:.1} s",
+        cut.as_secs_f64(),
+        waited.as_secs_f64()
+    ));
+}
