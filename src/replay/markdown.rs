@@ -27,7 +27,7 @@ use std::collections::HashMap;
 use std::fmt::Write;
 use std::sync::LazyLock;
 
-static MARKER: LazyLock<Regex> = LazyLock::new(|| Regex::new(r"\[\^([^\]\s]+)\]").unwrap());
+static MARKER: LazyLock<Regex> = LazyLock::new(|| Regex::new(r"\[\^([^\]\s\\]+)\]").unwrap());
 static DEFINITION: LazyLock<Regex> =
     LazyLock::new(|| Regex::new(r"^\[\^([^\]\s]+)\]:\s?(.*)$").unwrap());
 static DOC: LazyLock<Regex> = LazyLock::new(|| Regex::new(r"\bdoc\s+`([^`]+)`").unwrap());
@@ -39,13 +39,52 @@ static TITLE: LazyLock<Regex> = LazyLock::new(|| Regex::new(r"^\*(.+?)\*").unwra
 static LIST_ITEM: LazyLock<Regex> =
     LazyLock::new(|| Regex::new(r"^\s{0,3}(?:[-*+]|\d{1,9}[.)])\s+").unwrap());
 
+/// Record text made inert in Markdown: characters that would start a
+/// link, an image, raw HTML (so a `<script>` or a `javascript:` link in a
+/// record stays text), emphasis, code or a table are escaped with a
+/// backslash (CommonMark 0.31, "Backslash escapes"), and so is a first
+/// character that would start a heading, block quote or list. [`parse`]
+/// removes the escapes, so a quote reads back as the page has it.
+pub fn inert(s: &str) -> String {
+    let mut out = String::with_capacity(s.len() + 8);
+    let lead_digits = s.chars().take_while(char::is_ascii_digit).count();
+    for (i, c) in s.chars().enumerate() {
+        let lead = (i == 0 && matches!(c, '#' | '>' | '-' | '+' | '='))
+            || (i == lead_digits && lead_digits > 0 && matches!(c, '.' | ')'));
+        if lead || matches!(c, '\\' | '`' | '*' | '_' | '[' | ']' | '<' | '&' | '~' | '|') {
+            out.push('\\');
+        }
+        out.push(c);
+    }
+    out
+}
+
+/// Undo [`inert`] (any backslash before ASCII punctuation, as CommonMark
+/// reads it).
+pub fn unescape(s: &str) -> String {
+    let mut out = String::with_capacity(s.len());
+    let mut chars = s.chars().peekable();
+    while let Some(c) = chars.next() {
+        if c == '\\'
+            && let Some(&n) = chars.peek()
+            && n.is_ascii_punctuation()
+        {
+            out.push(n);
+            chars.next();
+            continue;
+        }
+        out.push(c);
+    }
+    out
+}
+
 /// Write sentences and their citations as Markdown with footnotes. Each
 /// distinct (document, page, quote) gets one footnote.
 pub fn render_claims(out: &mut String, sentences: &[(&str, &[CitedQuote])]) {
     let mut notes: Vec<&CitedQuote> = Vec::new();
     let mut body = Vec::new();
     for (text, cites) in sentences {
-        let mut s = crate::text::fold_ws(text);
+        let mut s = inert(&crate::text::fold_ws(text));
         for c in cites.iter() {
             let n = match notes
                 .iter()
@@ -64,7 +103,7 @@ pub fn render_claims(out: &mut String, sentences: &[(&str, &[CitedQuote])]) {
     let _ = writeln!(out, "{}\n", body.join(" "));
     for (i, c) in notes.iter().enumerate() {
         let _ = writeln!(out, "[^{}]: {}", i + 1, footnote_head(c));
-        let _ = writeln!(out, "    > {}", crate::text::fold_ws(&c.quote));
+        let _ = writeln!(out, "    > {}", inert(&crate::text::fold_ws(&c.quote)));
         // An indented line that is not a quote: read past on replay.
         if let Some(w) = &c.ocr_warning {
             let _ = writeln!(out, "    {w}");
@@ -79,10 +118,10 @@ fn footnote_head(c: &CitedQuote) -> String {
     let mut head = String::new();
     if let Some(t) = c.title.as_deref().filter(|t| !t.is_empty()) {
         // Asterisks inside a title would end the emphasis early.
-        let _ = write!(head, "*{}*", t.replace('*', "\u{2217}"));
+        let _ = write!(head, "*{}*", inert(&t.replace('*', "\u{2217}")));
     }
     for part in [&c.organisation, &c.date].into_iter().flatten() {
-        let _ = write!(head, ", {part}");
+        let _ = write!(head, ", {}", inert(part));
     }
     if !head.is_empty() {
         head.push_str(" \u{2014} ");
@@ -119,15 +158,17 @@ fn blockquote(out: &mut String, text: &str) {
 /// HTML comment.
 pub fn render_answer(a: &AnswerRecord) -> String {
     let mut out = String::new();
-    let _ = writeln!(out, "# {}\n", one_line(&a.question));
+    let _ = writeln!(out, "# {}\n", inert(&one_line(&a.question)));
     if a.abstained {
         blockquote(
             &mut out,
             &format!(
                 "**No answer:** {}.",
-                a.abstain_reason
-                    .as_deref()
-                    .unwrap_or("the retrieved records do not answer this question")
+                inert(
+                    a.abstain_reason
+                        .as_deref()
+                        .unwrap_or("the retrieved records do not answer this question")
+                )
             ),
         );
     } else {
@@ -154,8 +195,8 @@ pub fn render_answer(a: &AnswerRecord) -> String {
             let _ = writeln!(
                 q,
                 "- \u{201C}{}\u{201D} ({at}) \u{2014} {}",
-                one_line(&c.text),
-                c.why_not
+                inert(&one_line(&c.text)),
+                inert(&c.why_not)
             );
         }
         blockquote(&mut out, &q);
@@ -168,8 +209,8 @@ pub fn render_answer(a: &AnswerRecord) -> String {
             let _ = writeln!(
                 q,
                 "- \u{201C}{}\u{201D} ({at}) \u{2014} {}",
-                one_line(&s.text),
-                s.reason.as_deref().unwrap_or("not about what was asked")
+                inert(&one_line(&s.text)),
+                inert(s.reason.as_deref().unwrap_or("not about what was asked"))
             );
         }
         blockquote(&mut out, &q);
@@ -184,8 +225,8 @@ pub fn render_answer(a: &AnswerRecord) -> String {
             let _ = writeln!(
                 q,
                 "- \u{201C}{}\u{201D} \u{2014} {}",
-                one_line(&s.text),
-                s.reason.as_deref().unwrap_or("not supported")
+                inert(&one_line(&s.text)),
+                inert(s.reason.as_deref().unwrap_or("not supported"))
             );
         }
         blockquote(&mut out, &q);
@@ -353,7 +394,7 @@ pub fn parse(text: &str) -> Result<Claims, String> {
         if let Some(h) = t.strip_prefix('#') {
             flush(&mut current, &mut paragraphs);
             if question.is_none() && !h.starts_with('#') {
-                question = Some(h.trim().to_string());
+                question = Some(unescape(h.trim()));
             }
             continue;
         }
@@ -429,11 +470,42 @@ fn sentences_with_markers(p: &str) -> Vec<(String, Vec<String>)> {
     let mut last = 0;
     for m in MARKER.captures_iter(p) {
         let whole = m.get(0).expect("match");
+        // An escaped bracket is text, not a marker.
+        let slashes = p[..whole.start()]
+            .chars()
+            .rev()
+            .take_while(|&c| c == '\\')
+            .count();
+        if slashes % 2 == 1 {
+            continue;
+        }
         clean.push_str(&p[last..whole.start()]);
         marks.push((clean.len(), m[1].to_string()));
         last = whole.end();
     }
     clean.push_str(&p[last..]);
+    // Sentences are found in the text as the record has it (escapes
+    // removed), as they were when the answer was made; `at[i]` is where
+    // byte i of the escaped text lands.
+    let mut plain = String::with_capacity(clean.len());
+    let mut at = vec![0; clean.len() + 1];
+    let mut chars = clean.char_indices().peekable();
+    while let Some((i, c)) = chars.next() {
+        at[i] = plain.len();
+        if c == '\\'
+            && let Some(&(j, n)) = chars.peek()
+            && n.is_ascii_punctuation()
+        {
+            at[j] = plain.len();
+            plain.push(n);
+            chars.next();
+            continue;
+        }
+        plain.push(c);
+    }
+    at[clean.len()] = plain.len();
+    let marks: Vec<(usize, String)> = marks.into_iter().map(|(pos, l)| (at[pos], l)).collect();
+    let clean = plain;
     let spans: Vec<std::ops::Range<usize>> = crate::segment::sentence_spans(&clean)
         .into_iter()
         .filter(|r| !clean[r.clone()].trim().is_empty())
@@ -480,7 +552,7 @@ fn footnote(label: &str, n: &Footnote) -> Result<CitedQuote, String> {
         Some(f) => Some(f[1].to_ascii_lowercase()),
         None => None,
     };
-    let quote = n.quote.join(" ").trim().to_string();
+    let quote = unescape(n.quote.join(" ").trim());
     if quote.is_empty() {
         return Err(format!(
             "footnote [^{label}] has no quote (put it on an indented line starting with >)"
@@ -489,8 +561,8 @@ fn footnote(label: &str, n: &Footnote) -> Result<CitedQuote, String> {
     let before = head[..at].trim_end().trim_end_matches('\u{2014}').trim();
     let title = TITLE
         .captures(before)
-        .map(|t| t[1].replace('\u{2217}', "*"))
-        .or_else(|| (!before.is_empty()).then(|| before.to_string()));
+        .map(|t| unescape(&t[1]).replace('\u{2217}', "*"))
+        .or_else(|| (!before.is_empty()).then(|| unescape(before)));
     Ok(CitedQuote {
         doc_id: DocId(doc[1].to_string()),
         title,
@@ -629,12 +701,57 @@ code[^a]
         assert_eq!(c[1].fingerprint, None);
     }
 
+    /// Issue 26, item 5: links, images and raw HTML from a record are
+    /// written as text (CommonMark backslash escapes), and read back as
+    /// the record has them.
+    #[test]
+    fn hostile_markup_from_records_is_written_as_text() {
+        let hostile = "See [the notice](javascript:alert(1)) and ![x](http://x.example/p.png) <img src=x onerror=alert(1)> <script>x()</script> &lt;b&gt; `code` *bold* ~~gone~~ | a | b |.";
+        let c = CitedQuote {
+            doc_id: DocId("notice".into()),
+            title: Some("<b>raw</b> [title](javascript:x)".into()),
+            organisation: Some("[Org](javascript:y)".into()),
+            date: None,
+            page: 1,
+            end_page: None,
+            quote: hostile.into(),
+            fingerprint: None,
+            chunk: None,
+            ocr_warning: None,
+        };
+        // A claim is one sentence as the segmenter finds it: the "!" of
+        // the image would end one, so the claim carries the rest.
+        let said = "See [the notice](javascript:alert(1)) <img src=x onerror=alert(1)> <script>x()</script> &lt;b&gt; `code` *bold* ~~gone~~ | a | b |.";
+        let mut out = String::new();
+        render_claims(&mut out, &[(said, std::slice::from_ref(&c))]);
+        // No unescaped opener of a link, image, tag, entity or code span
+        // is left outside the footnote markers.
+        let bare = MARKER.replace_all(&out, "");
+        let bare = DOC.replace_all(&bare, "");
+        let mut prev = ' ';
+        let mut slashes = 0;
+        for ch in bare.chars() {
+            if matches!(ch, '[' | '<' | '&' | '`') {
+                assert!(slashes % 2 == 1, "unescaped {ch:?} in:\n{out}");
+            }
+            slashes = if ch == '\\' { slashes + 1 } else { 0 };
+            prev = ch;
+        }
+        let _ = prev;
+        let back = parse(&out).unwrap();
+        assert_eq!(back.claims[0].text, said);
+        let got = &back.claims[0].citations[0];
+        assert_eq!(got.quote, hostile);
+        assert_eq!(got.title.as_deref(), Some("<b>raw</b> [title](javascript:x)"));
+    }
+
     proptest::proptest! {
         /// Any quote, title and id written as a footnote reads back as
         /// written (white space folded), whatever punctuation it holds.
         #[test]
         fn footnotes_round_trip(
-            quote in "[A-Za-z0-9 ,.;:'\"()\\[\\]*_`#>\u{201C}\u{201D}\u{2014}$%-]{1,80}",
+            quote in "[A-Za-z0-9 ,.;:'\"()\\[\\]*_`#><&~|!\\\\\u{201C}\u{201D}\u{2014}$%-]{1,80}",
+            said in "[A-Za-z0-9][A-Za-z0-9 ,;:'\"()\\[\\]*_`#<>&~|\\\\$%-]{0,60}",
             title in "[A-Za-z0-9 ,.'()*-]{0,40}",
             id in "[a-z0-9][a-z0-9._-]{0,20}",
             page in 1u32..500,
@@ -656,9 +773,11 @@ code[^a]
                 ocr_warning: None,
             };
             let mut out = String::new();
-            render_claims(&mut out, &[("The board met.", std::slice::from_ref(&c))]);
+            let sentence = format!("The board met {}.", said.trim_end_matches('\\'));
+            render_claims(&mut out, &[(sentence.as_str(), std::slice::from_ref(&c))]);
             let back = parse(&out).unwrap();
-            proptest::prop_assert_eq!(back.claims.len(), 1);
+            proptest::prop_assert_eq!(back.claims.len(), 1, "{}", out);
+            proptest::prop_assert_eq!(&back.claims[0].text, &crate::text::fold_ws(&sentence));
             let got = &back.claims[0].citations[0];
             proptest::prop_assert_eq!(&got.quote, &quote);
             proptest::prop_assert_eq!(&got.doc_id.0, &id);
