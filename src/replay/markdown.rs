@@ -51,7 +51,12 @@ pub fn inert(s: &str) -> String {
     for (i, c) in s.chars().enumerate() {
         let lead = (i == 0 && matches!(c, '#' | '>' | '-' | '+' | '='))
             || (i == lead_digits && lead_digits > 0 && matches!(c, '.' | ')'));
-        if lead || matches!(c, '\\' | '`' | '*' | '_' | '[' | ']' | '<' | '&' | '~' | '|') {
+        if lead
+            || matches!(
+                c,
+                '\\' | '`' | '*' | '_' | '[' | ']' | '<' | '&' | '~' | '|'
+            )
+        {
             out.push('\\');
         }
         out.push(c);
@@ -742,7 +747,10 @@ code[^a]
         assert_eq!(back.claims[0].text, said);
         let got = &back.claims[0].citations[0];
         assert_eq!(got.quote, hostile);
-        assert_eq!(got.title.as_deref(), Some("<b>raw</b> [title](javascript:x)"));
+        assert_eq!(
+            got.title.as_deref(),
+            Some("<b>raw</b> [title](javascript:x)")
+        );
     }
 
     proptest::proptest! {

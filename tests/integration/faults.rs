@@ -667,3 +667,192 @@ fn slow_fault_campaign_with_pdftotext() {
     }
     campaign("pdftotext");
 }
+
+/// A PDF from numbered objects (1 is the catalogue), with its xref table.
+fn raw_pdf(objs: &[Vec<u8>]) -> Vec<u8> {
+    let mut out = b"%PDF-1.4\n".to_vec();
+    let mut offsets = Vec::new();
+    for (i, o) in objs.iter().enumerate() {
+        offsets.push(out.len());
+        out.extend_from_slice(format!("{} 0 obj\n", i + 1).as_bytes());
+        out.extend_from_slice(o);
+        out.extend_from_slice(b"\nendobj\n");
+    }
+    let xref = out.len();
+    out.extend_from_slice(format!("xref\n0 {}\n0000000000 65535 f \n", objs.len() + 1).as_bytes());
+    for o in offsets {
+        out.extend_from_slice(format!("{o:010} 00000 n \n").as_bytes());
+    }
+    out.extend_from_slice(
+        format!(
+            "trailer\n<< /Size {} /Root 1 0 R >>\nstartxref\n{xref}\n%%EOF\n",
+            objs.len() + 1
+        )
+        .as_bytes(),
+    );
+    out
+}
+
+fn stream(dict: &str, body: &str) -> Vec<u8> {
+    format!(
+        "<< {dict} /Length {} >>\nstream\n{body}\nendstream",
+        body.len()
+    )
+    .into_bytes()
+}
+
+/// Issue 26, item 1: PDFs whose structure loops or recurses without end.
+/// A page tree whose node lists itself among its kids, a page tree 100,000
+/// levels deep, and a form XObject that draws itself. With each reader,
+/// every such file stays one file's diagnostic (or is read), the run ends
+/// well inside the per-file time allowance, and the good file is stored.
+#[test]
+fn looping_and_self_drawing_pdfs_stay_one_files_problem_issue_26() {
+    let dir = tempfile::tempdir().unwrap();
+    let font = b"<< /Type /Font /Subtype /Type1 /BaseFont /Helvetica >>".to_vec();
+    let page = |parent: usize, contents: usize, res: &str| {
+        format!(
+            "<< /Type /Page /Parent {parent} 0 R /MediaBox [0 0 612 792] /Contents {contents} 0 R \
+             /Resources << /Font << /F1 5 0 R >> {res} >> >>"
+        )
+        .into_bytes()
+    };
+    let text = stream("", "BT /F1 12 Tf 72 700 Td (Cycle page.) Tj ET");
+    // 1 catalogue, 2 pages node listing itself, 3 page, 4 contents, 5 font.
+    let cycle = raw_pdf(&[
+        b"<< /Type /Catalog /Pages 2 0 R >>".to_vec(),
+        b"<< /Type /Pages /Kids [3 0 R 2 0 R] /Count 2 >>".to_vec(),
+        page(2, 4, ""),
+        text.clone(),
+        font.clone(),
+    ]);
+    std::fs::write(dir.path().join("page-tree-cycle.pdf"), cycle).unwrap();
+    // 6 is a form that draws itself.
+    let selfish = raw_pdf(&[
+        b"<< /Type /Catalog /Pages 2 0 R >>".to_vec(),
+        b"<< /Type /Pages /Kids [3 0 R] /Count 1 >>".to_vec(),
+        page(2, 4, "/XObject << /X1 6 0 R >>"),
+        stream("", "BT /F1 12 Tf 72 700 Td (Form page.) Tj ET /X1 Do"),
+        font.clone(),
+        stream(
+            "/Type /XObject /Subtype /Form /BBox [0 0 612 792] /Resources << /XObject << /X1 6 0 R >> >>",
+            "/X1 Do",
+        ),
+    ]);
+    std::fs::write(dir.path().join("self-drawing-form.pdf"), selfish).unwrap();
+    // 1 catalogue, 2..=N+1 pages nodes each the only kid of the one above,
+    // then the page, its contents and the font.
+    let n = 100_000;
+    let mut objs = vec![b"<< /Type /Catalog /Pages 2 0 R >>".to_vec()];
+    let leaf = n + 2;
+    for i in 0..n {
+        let me = i + 2;
+        let kid = if i + 1 == n { leaf } else { me + 1 };
+        let parent = if i == 0 {
+            String::new()
+        } else {
+            format!("/Parent {} 0 R ", me - 1)
+        };
+        objs.push(format!("<< /Type /Pages {parent}/Kids [{kid} 0 R] /Count 1 >>").into_bytes());
+    }
+    objs.push(
+        format!(
+            "<< /Type /Page /Parent {} 0 R /MediaBox [0 0 612 792] /Contents {} 0 R \
+             /Resources << /Font << /F1 {} 0 R >> >> >>",
+            n + 1,
+            leaf + 1,
+            leaf + 2
+        )
+        .into_bytes(),
+    );
+    objs.push(stream("", "BT /F1 12 Tf 72 700 Td (Deep page.) Tj ET"));
+    objs.push(font);
+    std::fs::write(dir.path().join("deep-page-tree.pdf"), raw_pdf(&objs)).unwrap();
+    good_pdf(
+        &dir.path().join("good.pdf"),
+        "The quay wall was repaired in May 2021.",
+    );
+
+    let allowance = 20;
+    for reader in ["builtin", "pdftotext"] {
+        if reader == "pdftotext" && onrecord::extract::pdf::find_on_path("pdftotext").is_none() {
+            assert!(
+                std::env::var("CI").map_or(true, |v| v != "true"),
+                "pdftotext missing under CI=true"
+            );
+            continue;
+        }
+        let idx = tempfile::tempdir().unwrap();
+        let t = Instant::now();
+        let out = Command::new(env!("CARGO_BIN_EXE_onrecord"))
+            .args([
+                "add",
+                "--json",
+                "--quiet",
+                "--embedder",
+                "off",
+                "--ocr",
+                "never",
+            ])
+            .args([
+                "--pdf-reader",
+                reader,
+                "--reader-seconds",
+                &allowance.to_string(),
+            ])
+            .arg("--index")
+            .arg(idx.path())
+            .arg(dir.path())
+            .output()
+            .unwrap();
+        let secs = t.elapsed().as_secs_f64();
+        let stderr = String::from_utf8_lossy(&out.stderr);
+        assert!(
+            matches!(out.status.code(), Some(0 | 1)),
+            "{reader}: {:?} {stderr}",
+            out.status
+        );
+        let v: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
+        let report = &v["report"];
+        let named: Vec<String> = v["diagnostics"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .filter(|d| d["severity"] == "error")
+            .map(|d| {
+                d["path"]
+                    .as_str()
+                    .unwrap()
+                    .rsplit('/')
+                    .next()
+                    .unwrap()
+                    .to_string()
+            })
+            .collect();
+        let stored = report["ingested"].as_u64().unwrap();
+        let failed = report["failed"].as_u64().unwrap();
+        assert_eq!(stored + failed, 4, "{reader}: {v}");
+        assert_eq!(
+            failed as usize,
+            named.len(),
+            "{reader}: every failure is named: {v}"
+        );
+        assert!(!named.contains(&"good.pdf".to_string()), "{reader}: {v}");
+        assert!(
+            secs < f64::from(allowance) * 1.5 + 10.0,
+            "{reader}: {secs:.1} s"
+        );
+        let messages: Vec<String> = v["diagnostics"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .filter(|d| d["severity"] == "error")
+            .map(|d| d["message"].as_str().unwrap().chars().take(100).collect())
+            .collect();
+        figure(&format!(
+            "looping PDFs ({reader}): {stored} of 4 stored, {failed} named in an error ({}), {secs:.1} s: {}",
+            named.join(", "),
+            messages.join(" | ")
+        ));
+    }
+}
