@@ -92,9 +92,6 @@ fn hostile_pdf(inflated: usize, nested: usize) -> Vec<u8> {
     } else {
         format!("/Deep {}{}", "[".repeat(nested), "]".repeat(nested))
     };
-    let mut out = Vec::new();
-    let mut offsets = Vec::new();
-    out.extend_from_slice(b"%PDF-1.4\n");
     let objs: Vec<Vec<u8>> = vec![
         b"<< /Type /Catalog /Pages 2 0 R >>".to_vec(),
         b"<< /Type /Pages /Kids [3 0 R] /Count 1 >>".to_vec(),
@@ -115,25 +112,7 @@ fn hostile_pdf(inflated: usize, nested: usize) -> Vec<u8> {
         },
         b"<< /Type /Font /Subtype /Type1 /BaseFont /Helvetica >>".to_vec(),
     ];
-    for (i, o) in objs.iter().enumerate() {
-        offsets.push(out.len());
-        out.extend_from_slice(format!("{} 0 obj\n", i + 1).as_bytes());
-        out.extend_from_slice(o);
-        out.extend_from_slice(b"\nendobj\n");
-    }
-    let xref = out.len();
-    out.extend_from_slice(format!("xref\n0 {}\n0000000000 65535 f \n", objs.len() + 1).as_bytes());
-    for o in offsets {
-        out.extend_from_slice(format!("{o:010} 00000 n \n").as_bytes());
-    }
-    out.extend_from_slice(
-        format!(
-            "trailer\n<< /Size {} /Root 1 0 R >>\nstartxref\n{xref}\n%%EOF\n",
-            objs.len() + 1
-        )
-        .as_bytes(),
-    );
-    out
+    raw_pdf(&objs)
 }
 
 fn email(headers: &str, body: &str) -> String {
