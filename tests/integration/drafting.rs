@@ -218,17 +218,22 @@ fn instructions_planted_in_a_record_never_reach_the_verified_answer() {
     }
     assert!(!mentions_resignation(&a), "{a:#?}");
     // The extractive drafter cannot be steered into it either.
-    let e = onrecord::answer::ask(
-        &index,
-        RESIGN_Q,
+    let e = extractive_answer(&index, RESIGN_Q);
+    assert!(!mentions_resignation(&e), "{e:#?}");
+}
+
+/// The default answer: extractive drafter, rules judge, ten passages.
+fn extractive_answer(index: &Index, q: &str) -> onrecord::answer::AnswerRecord {
+    onrecord::answer::ask(
+        index,
+        q,
         &Filters::default(),
         10,
         &Extractive::default(),
         serde_json::Value::Null,
         &RulesJudge::default(),
     )
-    .unwrap();
-    assert!(!mentions_resignation(&e), "{e:#?}");
+    .unwrap()
 }
 
 fn local_model() -> Option<Arc<LocalModel>> {
@@ -928,16 +933,7 @@ fn planted_instructions_in_many_phrasings_never_reach_an_answer_issue_22() {
         flagged += 1;
 
         // The extractive drafter cannot be steered into it either.
-        let e = onrecord::answer::ask(
-            &index,
-            question,
-            &Filters::default(),
-            10,
-            &Extractive::default(),
-            serde_json::Value::Null,
-            &RulesJudge::default(),
-        )
-        .unwrap();
+        let e = extractive_answer(&index, question);
         assert!(!states_claim(&e), "{name}: {e:#?}");
 
         // The model on every third phrasing (English and French), to keep
