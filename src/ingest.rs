@@ -110,26 +110,26 @@ pub struct MemDoc {
     pub pages: Vec<String>,
 }
 
-/// What a directory entry is when it is neither a regular file nor a
-/// folder, in words for a diagnostic ("a symbolic link", "a named pipe").
-pub fn special_kind(ft: &std::fs::FileType) -> Option<&'static str> {
+/// What a directory entry that is neither a regular file nor a folder is,
+/// in words for a diagnostic ("symbolic link", "named pipe").
+pub fn special_kind(ft: &std::fs::FileType) -> &'static str {
     if ft.is_symlink() {
-        return Some("a symbolic link");
+        return "symbolic link";
     }
     #[cfg(unix)]
     {
         use std::os::unix::fs::FileTypeExt;
         if ft.is_fifo() {
-            return Some("a named pipe");
+            return "named pipe";
         }
         if ft.is_socket() {
-            return Some("a socket");
+            return "socket";
         }
         if ft.is_block_device() || ft.is_char_device() {
-            return Some("a device");
+            return "device";
         }
     }
-    (!ft.is_file() && !ft.is_dir()).then_some("not a regular file")
+    "special file"
 }
 
 /// Collect the files under `paths` (folders recursively, hidden entries
@@ -155,14 +155,14 @@ pub fn collect_files(paths: &[PathBuf], diags: &mut Vec<Diagnostic>) -> Vec<Path
                     Ok(e) if e.file_type().is_file() => out.push(e.into_path()),
                     Ok(e) if e.file_type().is_dir() => {}
                     Ok(e) => {
-                        let what = special_kind(&e.file_type()).unwrap_or("not a regular file");
+                        let what = special_kind(&e.file_type());
                         let message = match std::fs::read_link(e.path()) {
                             Ok(to) if e.file_type().is_symlink() => format!(
-                                "skipped: {what} (to {}); links inside a folder are not followed, \
+                                "skipped: a {what} (to {}); links inside a folder are not followed, \
                                  so add the file it points to by name if it belongs to the release",
                                 to.display()
                             ),
-                            _ => format!("skipped: {what}, not a file that can be read"),
+                            _ => format!("skipped: a {what}, not a file that can be read"),
                         };
                         diags.push(Diagnostic {
                             path: e.into_path(),
@@ -180,8 +180,8 @@ pub fn collect_files(paths: &[PathBuf], diags: &mut Vec<Diagnostic>) -> Vec<Path
         } else {
             let message = match std::fs::symlink_metadata(p) {
                 Ok(m) => format!(
-                    "{}, not a file or folder that can be read",
-                    special_kind(&m.file_type()).unwrap_or("not a regular file")
+                    "a {}, not a file or folder that can be read",
+                    special_kind(&m.file_type())
                 ),
                 Err(_) => "no such file or folder".into(),
             };
@@ -301,9 +301,7 @@ pub fn ingest_paths(
     let mut skipped_entries = std::collections::BTreeMap::<String, usize>::new();
     for d in diags.iter().filter(|d| d.severity == Severity::Warning) {
         let what = std::fs::symlink_metadata(&d.path)
-            .ok()
-            .and_then(|m| special_kind(&m.file_type()))
-            .unwrap_or("not a regular file");
+            .map_or("special file", |m| special_kind(&m.file_type()));
         *skipped_entries.entry(format!("({what})")).or_default() += 1;
     }
     let bars = indicatif::MultiProgress::new();
@@ -875,13 +873,13 @@ impl Run<'_> {
     }
 }
 
-/// "page 3" or "pages 1-4, 7".
 /// "page 1 needs OCR", "pages 1-3 need OCR".
 fn need_ocr(pages: &[u32]) -> String {
     let verb = if pages.len() == 1 { "needs" } else { "need" };
     format!("{} {verb} OCR", page_list(pages))
 }
 
+/// "page 3" or "pages 1-4, 7".
 fn page_list(pages: &[u32]) -> String {
     let mut parts: Vec<String> = Vec::new();
     let mut i = 0;

@@ -117,9 +117,9 @@ impl AsyncRead for GuardedIo {
         let before = buf.filled().len();
         match Pin::new(&mut self.stream).poll_read(cx, buf) {
             Poll::Ready(Ok(())) => {
-                let new = buf.filled()[before..].to_vec();
+                let new = &buf.filled()[before..];
                 if !new.is_empty() {
-                    self.scan(&new);
+                    self.scan(new);
                     self.active();
                 }
                 Poll::Ready(Ok(()))
