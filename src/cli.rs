@@ -2537,11 +2537,11 @@ fn cmd_ingest(
         let skipped = if skipped.is_empty() {
             String::new()
         } else {
-            format!(" (unsupported or not files: {})", skipped.join(", "))
+            format!(" (by type: {})", skipped.join(", "))
         };
         writeln!(
             out,
-            "{} ingested ({} replaced), {} unchanged, {} skipped{skipped}, {} failed; {} pages, {} chunks in {:.1}s -> {}",
+            "{} added ({} replaced), {} unchanged, {} skipped{skipped}, {} failed; {} pages, {} chunks in {:.1}s -> {}",
             report.ingested,
             report.replaced,
             report.unchanged,
@@ -2844,7 +2844,7 @@ fn cmd_demo(
     let mut err = std::io::stderr().lock();
     writeln!(
         err,
-        "Demo index {}: {} ingested, {} unchanged, {} failed; {} pages.",
+        "Demo index {}: {} added, {} unchanged, {} failed; {} pages.",
         index.display(),
         report.ingested,
         report.unchanged,

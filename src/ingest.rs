@@ -772,7 +772,7 @@ impl Run<'_> {
                 &path,
                 Severity::Warning,
                 format!(
-                    "{} but could not be read (see the first warning for how to install what is missing); the file will be read again on the next ingest",
+                    "{} but could not be read (see the first warning for how to install what is missing); the file will be read again by the next `onrecord add`",
                     need_ocr(&unread)
                 ),
             );

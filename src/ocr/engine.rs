@@ -21,7 +21,7 @@ use std::sync::atomic::{AtomicUsize, Ordering};
 use std::time::Duration;
 
 /// How Debian and Ubuntu users install what OCR needs.
-pub const INSTALL_HINT: &str = "install it with `apt-get install tesseract-ocr tesseract-ocr-eng tesseract-ocr-fra` (Debian, Ubuntu; `brew install tesseract tesseract-lang` on macOS), then run the ingest again: pages already stored are kept and only the unread pages are read";
+pub const INSTALL_HINT: &str = "install it with `apt-get install tesseract-ocr tesseract-ocr-eng tesseract-ocr-fra` (Debian, Ubuntu; `brew install tesseract tesseract-lang` on macOS), then run `onrecord add` again on the same files: pages already stored are kept and only the unread pages are read";
 
 /// Why a page could not be read by OCR.
 #[derive(Debug, Clone, thiserror::Error, PartialEq)]
@@ -31,7 +31,7 @@ pub enum OcrError {
     )]
     NotInstalled { program: String },
     #[error(
-        "pdftoppm is not installed, so scanned pages cannot be rendered for OCR; install it with `apt-get install poppler-utils`, then run the ingest again"
+        "pdftoppm is not installed, so scanned pages cannot be rendered for OCR; install it with `apt-get install poppler-utils`, then run `onrecord add` again on the same files"
     )]
     RendererMissing,
     #[error(

@@ -306,7 +306,7 @@ fn the_demo_command_uses_hybrid_when_the_model_is_present() {
     }
     let (records, err) = demo(&onrecord::embed::models_dir());
     assert!(err.contains("Retrieval: hybrid"), "{err}");
-    assert!(err.contains(" 0 ingested, "), "documents read again: {err}");
+    assert!(err.contains(" 0 added, "), "documents read again: {err}");
     for r in &records {
         assert_eq!(r["config"]["retriever"], "hybrid");
         assert!(
