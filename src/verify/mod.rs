@@ -378,7 +378,7 @@ static ADDRESSED: LazyLock<Vec<Regex>> = LazyLock::new(|| {
 /// only, since records quote such words in ordinary prose too.
 static INSTRUCTION: LazyLock<Vec<Regex>> = LazyLock::new(|| {
     [
-        r"(?i)(?:^|[.;:!?]\s+|\b(?:and|then|instead|now|please)\s+)(?:state|say|write|answer|respond|reply|claim|report|conclude)\s+(?:that|with|only)\b",
+        r"(?i)(?:^|[.;:!?]\s+|\b(?:and|then|instead|now|please)\s+)(?:state|say|write|answer|respond|reply|claim)\s+(?:that|with|only)\b",
         r"(?i)\byou (?:must|should|are required to) (?:state|say|write|answer|report|conclude|tell|confirm)\b",
         r"(?i)\bplease tell (?:the )?(?:users?|readers?|reporters?|everyone|anyone|them)\b",
         r"(?i)(?:^|[.;:!?]\s+|\b(?:et|puis|alors|veuillez)\s+)(?:indiquez|affirmez|dites|[ée]crivez|r[ée]pondez|concluez|d[ée]clarez)\s+(?:que|qu['’])",
@@ -387,6 +387,16 @@ static INSTRUCTION: LazyLock<Vec<Regex>> = LazyLock::new(|| {
     .map(|p| Regex::new(p).unwrap())
     .collect()
 });
+
+/// Whether `text` holds words addressed to an AI model (the patterns that
+/// set a whole passage aside), or an imperative to assert something (read
+/// only around a quote). For measuring both on ordinary prose.
+pub fn instruction_patterns(text: &str) -> (bool, bool) {
+    (
+        ADDRESSED.iter().any(|re| re.is_match(text)),
+        INSTRUCTION.iter().any(|re| re.is_match(text)),
+    )
+}
 
 /// The sentence(s) of `chunk` around `bytes`, or the passage's sentence
 /// addressed to a model, if the quote comes from text aimed at an AI model

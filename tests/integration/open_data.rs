@@ -131,3 +131,61 @@ fn abstention_threshold_is_calibrated_on_squad() {
     assert!(r.answered_with_gold >= 0.55, "{r:?}");
     assert!(r.abstained >= 0.90, "{r:?}");
 }
+
+/// The planted-instruction patterns against ordinary prose: the 2,067
+/// paragraphs of SQuAD v1.1 dev (Wikipedia) and the 5,183 abstracts of the
+/// SciFact corpus (BEIR layout), neither of which addresses an AI model.
+/// A match would strike true sentences (a whole passage, for text
+/// addressed to a model), so none may match. This check found that
+/// "... and conclude that" and "We now report that", ordinary in
+/// abstracts and minutes, were read as instructions (9 abstracts); those
+/// verbs now count only when said to "you".
+#[test]
+fn instruction_patterns_match_no_ordinary_prose() {
+    let (Some(squad), Some(scifact)) = (shared_data("squad-v1.1"), shared_data("scifact/beir"))
+    else {
+        return;
+    };
+    let squad: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(squad.join("dev-v1.1.json")).unwrap())
+            .unwrap();
+    let mut texts: Vec<(String, String)> = Vec::new();
+    for article in squad["data"].as_array().unwrap() {
+        for p in article["paragraphs"].as_array().unwrap() {
+            texts.push(("SQuAD".into(), p["context"].as_str().unwrap().to_string()));
+        }
+    }
+    let n_squad = texts.len();
+    for line in std::fs::read_to_string(scifact.join("corpus.jsonl"))
+        .unwrap()
+        .lines()
+    {
+        let d: serde_json::Value = serde_json::from_str(line).unwrap();
+        let t = format!(
+            "{} {}",
+            d["title"].as_str().unwrap_or(""),
+            d["text"].as_str().unwrap_or("")
+        );
+        texts.push(("SciFact".into(), t));
+    }
+    assert_eq!(n_squad, 2067, "SQuAD v1.1 dev has 2,067 paragraphs");
+    assert_eq!(
+        texts.len() - n_squad,
+        5183,
+        "the SciFact corpus has 5,183 abstracts"
+    );
+    let hits: Vec<String> = texts
+        .iter()
+        .filter_map(|(src, t)| {
+            let (addressed, instruction) = onrecord::verify::instruction_patterns(t);
+            (addressed || instruction).then(|| format!("{src}: {}", &t[..t.len().min(120)]))
+        })
+        .collect();
+    crate::support::figure(&format!(
+        "instruction patterns on ordinary prose: {} of {} SQuAD dev paragraphs and {} SciFact abstracts match",
+        hits.len(),
+        n_squad,
+        texts.len() - n_squad
+    ));
+    assert!(hits.is_empty(), "{hits:#?}");
+}
