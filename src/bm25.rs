@@ -107,7 +107,11 @@ impl Bm25Index {
         let idx = Bm25Index::open_or_create(index_dir)?;
         let want = store.generation()?;
         if idx.synced_generation()? != Some(want) {
-            match crate::lock::try_acquire(index_dir, "BM25 rebuild", crate::lock::PATIENCE)? {
+            match crate::lock::try_acquire(
+                index_dir,
+                "a repair of the search index",
+                crate::lock::PATIENCE,
+            )? {
                 Ok(_writer) => {
                     tracing::info!("BM25 index is behind the store; rebuilding it");
                     idx.rebuild(store)?;

@@ -2137,7 +2137,7 @@ fn cmd_reindex(
     use onrecord::vectors::{DEFAULT_SCALAR, VectorIndex, embed_pending};
     let started = std::time::Instant::now();
     let mut store = onrecord::store::Store::open(index)?;
-    let _writer = onrecord::lock::acquire(index, "reindex")?;
+    let _writer = onrecord::lock::acquire(index, "`onrecord reindex`")?;
     let bm25 = onrecord::bm25::Bm25Index::open_or_create(index)?;
     bm25.rebuild(&store)?;
     let (docs, _, chunks) = store.counts()?;
@@ -2506,7 +2506,7 @@ fn cmd_ingest(
     let embedder = load_embedder(choice)?;
     // Held across storing and embedding, so no other writer slips in
     // between (the library calls below take it again, re-entrantly).
-    let _writer = onrecord::lock::acquire(index, "add")?;
+    let _writer = onrecord::lock::acquire(index, "`onrecord add`")?;
     let (report, diags) = ingest::ingest_paths(index, paths, cfg)?;
     // Documents are committed; now their chunks are embedded, committing as
     // it goes, so an interrupted run loses nothing and the next continues.

@@ -289,7 +289,7 @@ pub fn ingest_paths(
 ) -> Result<(Report, Vec<Diagnostic>)> {
     let started = Instant::now();
     // One writer per index, for the whole run.
-    let _writer = crate::lock::acquire(index_dir, "add")?;
+    let _writer = crate::lock::acquire(index_dir, "`onrecord add`")?;
     let mut store = Store::open_or_create(index_dir)?;
     let bm25 = Bm25Index::open_synced(index_dir, &store)?;
     let mut diags = Vec::new();
@@ -365,7 +365,7 @@ pub fn ingest_docs(
     progress: Option<u64>,
 ) -> Result<Report> {
     let started = Instant::now();
-    let _writer = crate::lock::acquire(index_dir, "add")?;
+    let _writer = crate::lock::acquire(index_dir, "`onrecord add`")?;
     let mut store = Store::open_or_create(index_dir)?;
     let bm25 = Bm25Index::open_synced(index_dir, &store)?;
     let bar = progress_bar(progress.is_some(), progress.unwrap_or(0), "documents");

@@ -33,7 +33,8 @@ pub const LOCK_FILE: &str = "writer.lock";
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct Holder {
     pub pid: u32,
-    /// What the holder is doing: `add`, `reindex`, a rebuild by a reader...
+    /// What the holder is doing, as a reporter would say it: "`onrecord
+    /// add`", "a repair of the search index"...
     pub command: String,
     /// Seconds since the Unix epoch when it took the lock.
     pub started: u64,
@@ -50,11 +51,7 @@ impl std::fmt::Display for Holder {
         } else {
             format!("{:.1} h ago", ago as f64 / 3600.0)
         };
-        write!(
-            f,
-            "`{}` in process {}, started {ago}",
-            self.command, self.pid
-        )
+        write!(f, "{} (process {}, started {ago})", self.command, self.pid)
     }
 }
 
@@ -225,7 +222,7 @@ mod tests {
             &path,
             serde_json::to_vec(&Holder {
                 pid: 4242,
-                command: "add".into(),
+                command: "`onrecord add`".into(),
                 started: now_secs() - 300,
             })
             .unwrap(),
@@ -238,7 +235,10 @@ mod tests {
             err.contains("process 4242") && err.contains("5 min ago"),
             "{err}"
         );
-        assert!(err.contains("`add`"), "{err}");
+        assert!(
+            err.contains("written by `onrecord add` (process 4242"),
+            "{err}"
+        );
         let h = writer_elsewhere(dir.path()).unwrap();
         assert_eq!(h.pid, 4242);
         drop(other);

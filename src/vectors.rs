@@ -343,7 +343,7 @@ impl VectorIndex {
     /// Save, unless another process is writing this index: then the graph
     /// stays in memory, and the writer saves its own when it is done.
     fn save_unless_written(&mut self, index_dir: &Path) -> Result<()> {
-        match crate::lock::try_acquire(index_dir, "vector index update", Duration::ZERO)? {
+        match crate::lock::try_acquire(index_dir, "a save of the search index", Duration::ZERO)? {
             Ok(_writer) => self.save(),
             Err(_) => {
                 self.last_sync.total = self.index.size();
@@ -638,7 +638,7 @@ pub fn update_with(
     progress: bool,
     sentences: bool,
 ) -> Result<(EmbedReport, SyncReport)> {
-    let _writer = crate::lock::acquire(index_dir, "add (embedding)")?;
+    let _writer = crate::lock::acquire(index_dir, "`onrecord add`")?;
     let mut store = Store::open(index_dir)?;
     let report = embed_pending_with(&mut store, embedder, progress, sentences)?;
     let vi = VectorIndex::open_synced(

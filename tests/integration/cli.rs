@@ -640,13 +640,16 @@ fn one_writer_at_a_time_and_readers_never_wait_issue_22() {
 
     // Another process writes the index: this test holds its writer lock,
     // as a running `add` does.
-    let held = onrecord::lock::acquire(idx.path(), "add").unwrap();
+    let held = onrecord::lock::acquire(idx.path(), "`onrecord add`").unwrap();
     write(src.path(), "b.txt", "The gangway was replaced in May 2022.");
     let started = std::time::Instant::now();
     let out = add(idx.path());
     let err = String::from_utf8(out.stderr).unwrap();
     assert_eq!(out.status.code(), Some(1), "{err}");
-    let holder = format!("being written by `add` in process {}", std::process::id());
+    let holder = format!(
+        "being written by `onrecord add` (process {}",
+        std::process::id()
+    );
     assert!(
         err.contains(&holder) && err.contains("wait for it to finish"),
         "{err}"
@@ -661,7 +664,7 @@ fn one_writer_at_a_time_and_readers_never_wait_issue_22() {
     // A reader searches what is committed, and says why it may be partial.
     let (v, err) = find(idx.path());
     assert_eq!(v["results"][0]["doc_id"], "a");
-    assert!(err.contains("being written by `add`"), "{err}");
+    assert!(err.contains("being written by `onrecord add`"), "{err}");
     assert!(!err.contains("reindex"), "{err}");
     // BM25 behind the store while the writer runs: not rebuilt here.
     std::fs::remove_dir_all(idx.path().join("bm25")).unwrap();
@@ -723,7 +726,7 @@ fn two_adds_started_together_issue_22() {
         } else {
             let other = pids[1 - i];
             assert!(
-                err.contains(&format!("being written by `add` in process {other}")),
+                err.contains(&format!("being written by `onrecord add` (process {other}")),
                 "{err}"
             );
         }
